@@ -1,0 +1,67 @@
+"""Entry point: parse, dispatch to a command module, turn errors into one line and an exit code.
+
+Exit codes (DESIGN.md §6): 0 done, 1 unexpected, 2 usage, 3 bad input,
+4 registration or CRS check failed, 5 output conflict.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import traceback
+import warnings
+from typing import Sequence
+
+from .. import __version__
+from ..errors import EXIT_UNEXPECTED, EXIT_USAGE, OverlayError, OverlayWarning
+from . import demo, describe, exporters, run
+
+COMMANDS = (run, demo, describe, exporters)
+
+EPILOG = """exit codes: 0 done, 1 unexpected error, 2 usage, 3 bad input (bundle, site file, records),
+4 registration or CRS check failed, 5 output conflict (would overwrite or clash)"""
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="overlay",
+        description="Suspect zones from acoustic laser-vibrometer scans of concrete, placed on as-built drawings "
+        "(DXF), priced as quantities (CSV) and merged into GIS asset layers (GeoPackage).",
+        epilog=EPILOG,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    parser.add_argument("--version", action="version", version=f"overlay {__version__}")
+    parser.add_argument("-v", "--verbose", action="store_true", help="show the full traceback on errors")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for mod in COMMANDS:
+        mod.add_parser(sub)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if args.command is None:
+        parser.print_help()
+        return EXIT_USAGE
+    warnings.simplefilter("default", OverlayWarning)
+    warnings.formatwarning = lambda msg, cat, *a, **k: f"warning: {msg}\n"  # type: ignore[assignment]
+    try:
+        return int(args.func(args) or 0)
+    except OverlayError as exc:
+        if args.verbose:
+            traceback.print_exc()
+        print(f"overlay: error: {exc.line()}", file=sys.stderr)
+        return exc.exit_code
+    except KeyboardInterrupt:
+        print("overlay: interrupted; nothing was moved into place", file=sys.stderr)
+        return EXIT_UNEXPECTED
+    except Exception as exc:  # the one place that catches everything, to print one line
+        if args.verbose:
+            traceback.print_exc()
+        print(f"overlay: unexpected error: {type(exc).__name__}: {exc} (run with -v for the traceback)", file=sys.stderr)
+        return EXIT_UNEXPECTED
+
+
+if __name__ == "__main__":  # pragma: no cover
+    raise SystemExit(main())

@@ -1,0 +1,26 @@
+"""``overlay run SITE.toml``: the main job on a site file."""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+from ..site import read_site
+from .common import add_output_options, run_and_write
+
+
+def add_parser(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser("run", help="turn the scans of a site file into DXF, GeoPackage and quantities",
+                       description="Read every scan bundle listed in SITE, find suspect zones, register them into "
+                       "the drawing frame and the map CRS, and write the outputs the site file asks for.")
+    p.add_argument("site", type=Path, metavar="SITE.toml", help="site file (format overlay-site/1)")
+    add_output_options(p, "overlay-out")
+    p.set_defaults(func=execute)
+
+
+def execute(args: argparse.Namespace) -> int:
+    site = read_site(args.site)
+    if args.accept_misfit:
+        site.accept_misfit = True
+    run_and_write(site, args.out, overwrite=args.overwrite, quiet=args.quiet)
+    return 0

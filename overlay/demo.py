@@ -1,0 +1,336 @@
+"""Generate the demo site from its scenario: scan bundles from physics, a truth file, drawings and assets.
+
+The records are what a vibrometer would see under a swept tone burst:
+
+* before the sound arrives, instrument noise only;
+* sound concrete answers weakly and flatly (pressure over a point impedance);
+* concrete over a delamination answers as a thin clamped plate of the cover
+  thickness: a damped resonance at the plate frequency (overlay.plate), its
+  amplitude following the plate's fundamental mode shape across the defect;
+* once the echo from the soffit reaches the head, the head itself is shaken
+  and the record is spoiled (this is why the gate exists);
+* a few dropouts (dead channel) and records corrupted to NaN.
+
+The truth file holds each defect's outline in the drawing frame, its depth,
+its plate frequency, and the area the contour at each class level should
+have, from the same physics without noise.  See docs/demo-site.md.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import shutil
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from .gate import speed_of_sound
+from .plate import aci318_modulus_pa, clamped_lambda, clamped_mode_shape, plate_frequency
+from .site import read_site
+from .tomlio import load_toml
+from .errors import SiteFileError
+
+SCENARIO_DIR = Path(__file__).resolve().parent.parent / "demo_site"
+
+
+def scenario_folder() -> Path:
+    """The demo scenario folder of this source tree (demo_site/ beside the package)."""
+    if not (SCENARIO_DIR / "scenario.toml").is_file():
+        raise SiteFileError("demo scenario not found; run from a source checkout (pip install -e .)", source=SCENARIO_DIR)
+    return SCENARIO_DIR
+
+
+def generate(dest: Path, scenario_dir: Path | None = None) -> Path:
+    """Write the demo site into ``dest`` and return the path of its site file."""
+    scenario_dir = scenario_dir or scenario_folder()
+    sc = load_toml(scenario_dir / "scenario.toml", SiteFileError)
+    dest.mkdir(parents=True, exist_ok=True)
+    site_path = dest / "site.toml"
+    shutil.copyfile(scenario_dir / "site.toml", site_path)
+    rng = np.random.default_rng(int(sc["seed"]))
+    acq = sc["acquisition"]
+    con = sc["concrete"]
+    modulus = aci318_modulus_pa(con["fc_mpa"])
+    lam2 = clamped_lambda() ** 2
+
+    fs, n = float(acq["sample_rate_hz"]), int(acq["n_samples"])
+    c = speed_of_sound(acq["air_temperature_c"])
+    t_arrive = acq["trigger_s"] + acq["source_distance_m"] / c
+    t_echo = t_arrive + acq["head_distance_m"] / c
+    t = np.arange(n) / fs
+    h0 = acq["pressure_pa"] / acq["healthy_impedance"]
+    sweep = _sweep(t - t_arrive, *acq["sweep_hz"], acq["sweep_s"])
+    echo = _sweep(t - t_echo, *acq["sweep_hz"], acq["sweep_s"]) * acq["echo_gain"]
+    gate = (math.ceil(t_arrive * fs - 1e-9), math.floor(t_echo * fs + 1e-9))
+    band = tuple(acq["band_hz"])
+    e_healthy = _band_energy(h0 * sweep[gate[0] : gate[1]], fs, band)
+    noise_var = e_healthy / 10 ** (acq["noise_snr_db"] / 10) / (2 * (band[1] - band[0]) / fs)
+    sigma = math.sqrt(noise_var)
+    e_noise = noise_var * 2 * (band[1] - band[0]) / fs
+
+    defects = []
+    for d in sc["defects"]:
+        a, b = d["semi_axes"]
+        radius = math.sqrt(a * b)
+        f0 = plate_frequency(radius, d["depth_m"], modulus, con["density"], con["poisson"], lam2)
+        w0 = 2 * math.pi * f0
+        gain = acq["participation"] * acq["healthy_impedance"] / (2 * con["damping"] * w0 * con["density"] * d["depth_m"])
+        response = _resonance(sweep, fs, f0, con["damping"], gain)
+        defects.append({**d, "radius_m": radius, "f0": f0, "gain": gain, "response": response})
+
+    truth: dict[str, Any] = {
+        "scenario": sc["structure"]["name"],
+        "structure": sc["structure"]["id"],
+        "spacing_m": acq["spacing_m"],
+        "gate_s": [gate[0] / fs, gate[1] / fs],
+        "modulus_pa": modulus,
+        "scans": [],
+        "defects": [],
+    }
+    scans_dir = dest / "scans"
+    if scans_dir.exists():
+        shutil.rmtree(scans_dir)
+    for s in sc["scans"]:
+        info = _write_scan(scans_dir / s["id"], s, sc, defects, t, sweep, echo, h0, sigma, rng)
+        truth["scans"].append(info)
+
+    levels = [(c.name, c.threshold_db) for c in read_site(site_path).classes]
+    for d in defects:
+        scan_id = next((s["id"] for s in truth["scans"] if d["id"] in s["defects"]), None)
+        seg_h = h0 * sweep[gate[0] : gate[1]]
+        seg_d = h0 * d["response"][gate[0] : gate[1]]
+        phis = np.linspace(0.0, 1.0, 401)
+        energies = np.array([_band_energy(seg_h + p * seg_d, fs, band) for p in phis]) + e_noise
+        ver_curve = 10 * np.log10(energies / (e_healthy + e_noise))
+        rho = np.linspace(0.0, 1.0, 2001)
+        shape = clamped_mode_shape(rho)
+        predicted = {}
+        for name, level in levels:
+            if ver_curve[-1] < level:
+                predicted[name] = 0.0
+                continue
+            phi_l = float(np.interp(level, ver_curve, phis)) if np.all(np.diff(ver_curve) > 0) else float(phis[np.argmax(ver_curve >= level)])
+            rho_l = float(np.interp(phi_l, shape[::-1], rho[::-1]))
+            predicted[name] = math.pi * d["semi_axes"][0] * d["semi_axes"][1] * rho_l**2
+        band_ok = 1.05 * band[0] <= d["f0"] <= 0.95 * band[1]
+        detectable = bool(band_ok and d["radius_m"] >= 2 * acq["spacing_m"] and ver_curve[-1] >= levels[0][1] + 3)
+        truth["defects"].append({
+            "id": d["id"],
+            "scan_id": scan_id,
+            "center": d["center"],
+            "semi_axes": d["semi_axes"],
+            "rotation_deg": d["rotation_deg"],
+            "depth_m": d["depth_m"],
+            "radius_m": d["radius_m"],
+            "area_m2": math.pi * d["semi_axes"][0] * d["semi_axes"][1],
+            "plate_frequency_hz": d["f0"],
+            "peak_ver_db": float(ver_curve[-1]),
+            "detectable": detectable,
+            "predicted_contour_area_m2": predicted,
+            "outline": ellipse(d["center"], d["semi_axes"], d["rotation_deg"]).tolist(),
+        })
+    (dest / "truth.json").write_text(json.dumps(truth, indent=1))
+    write_asbuilt_dxf(dest / "as-built.dxf", sc["structure"])
+    write_assets(dest / "assets.gpkg", sc["structure"])
+    return site_path
+
+
+def ellipse(center: list[float], semi_axes: list[float], rotation_deg: float, n: int = 96) -> np.ndarray:
+    """Closed outline of an ellipse, drawing frame."""
+    th = np.linspace(0, 2 * np.pi, n, endpoint=False)
+    a, b = semi_axes
+    r = math.radians(rotation_deg)
+    u, v = a * np.cos(th), b * np.sin(th)
+    pts = np.column_stack([center[0] + u * math.cos(r) - v * math.sin(r), center[1] + u * math.sin(r) + v * math.cos(r)])
+    return np.vstack([pts, pts[:1]])
+
+
+def _sweep(tau: np.ndarray, f_lo: float, f_hi: float, duration: float) -> np.ndarray:
+    """Linear swept tone burst with short raised-cosine ends; zero outside [0, duration]."""
+    k = (f_hi - f_lo) / duration
+    inside = (tau >= 0) & (tau <= duration)
+    x = np.where(inside, np.sin(2 * np.pi * (f_lo * tau + 0.5 * k * tau**2)), 0.0)
+    ramp = 0.0005
+    env = np.clip(np.minimum(tau, duration - tau) / ramp, 0, 1)
+    return x * (0.5 - 0.5 * np.cos(np.pi * env))
+
+
+def _resonance(drive: np.ndarray, fs: float, f0: float, zeta: float, gain: float) -> np.ndarray:
+    """Velocity of a damped mode driven by ``drive``; ``gain`` is its magnitude at resonance."""
+    m = 4 * len(drive)
+    spec = np.fft.rfft(drive, m)
+    w = 2 * np.pi * np.fft.rfftfreq(m, 1 / fs)
+    w0 = 2 * np.pi * f0
+    h = gain * (2j * zeta * w0 * w) / (w0**2 - w**2 + 2j * zeta * w0 * w)
+    return np.fft.irfft(spec * h, m)[: len(drive)]
+
+
+def _band_energy(x: np.ndarray, fs: float, band: tuple[float, float]) -> float:
+    """Mean-square in band of a Hann-windowed periodogram (the demo's own small estimator)."""
+    n = len(x)
+    w = 0.5 - 0.5 * np.cos(2 * np.pi * np.arange(n) / n)
+    p = np.abs(np.fft.rfft((x - x.mean()) * w)) ** 2 * 2 / (fs * np.sum(w**2))
+    f = np.fft.rfftfreq(n, 1 / fs)
+    sel = (f >= band[0]) & (f <= band[1])
+    return float(p[sel].sum() * fs / n)
+
+
+def _write_scan(folder: Path, s: dict, sc: dict, defects: list[dict], t: np.ndarray, sweep: np.ndarray,
+                echo: np.ndarray, h0: float, sigma: float, rng: np.random.Generator) -> dict[str, Any]:
+    acq = sc["acquisition"]
+    folder.mkdir(parents=True, exist_ok=True)
+    sp = acq["spacing_m"]
+    w, h = s["size"]
+    ncol, nrow = int(round(w / sp)) + 1, int(round(h / sp)) + 1
+    offset = np.array([1.5, 0.8])  # the scanner's own origin is not the scan centre
+    rr, cc = np.mgrid[0:nrow, 0:ncol]
+    local = np.column_stack([(cc.ravel() * sp - w / 2), (rr.ravel() * sp - h / 2)])
+    th = math.radians(s["scanner_rotation_deg"])
+    rot = np.array([[math.cos(th), -math.sin(th)], [math.sin(th), math.cos(th)]])
+    drawing = np.asarray(s["center"]) + local @ rot.T
+    scanner = local + offset
+    n_pts = len(local)
+
+    inside = [d for d in defects if _contains(s, d)]
+    coeffs = np.zeros((n_pts, len(inside)))
+    for k, d in enumerate(inside):
+        coeffs[:, k] = clamped_mode_shape(_ell_radius(drawing, d))
+    waves = np.stack([d["response"] for d in inside]) if inside else np.zeros((0, len(t)))
+    rec = h0 * (sweep[None, :] + coeffs @ waves)
+    rec += h0 * echo[None, :] * rng.uniform(0.8, 1.2, size=(n_pts, 1))
+    rec += rng.normal(0.0, sigma, size=rec.shape)
+    valid = np.ones(n_pts, dtype=int)
+    level = rng.uniform(0.6, 1.0, n_pts)
+    n_drop = max(1, int(round(acq["dropout_share"] * n_pts)))
+    drop = rng.choice(n_pts, n_drop, replace=False)
+    valid[drop] = 0
+    level[drop] = 0.03
+    rec[drop] = rng.normal(0.0, sigma * 0.05, size=(n_drop, len(t)))
+    healthy_idx = np.setdiff1d(np.arange(n_pts), drop)
+    corrupt = rng.choice(healthy_idx, int(acq["nan_points"]), replace=False)
+    rec[corrupt, len(t) // 3 : len(t) // 3 + 5] = np.nan
+    vscale = 1000.0 if s["velocity_unit"] == "mm/s" else 1.0
+    np.save(folder / "records.npy", (rec * vscale).astype(np.float32))
+
+    uscale = 1000.0 if s["unit"] == "mm" else 1.0
+    lines = ["id,row,col,x,y,valid,signal_level"]
+    for i in range(n_pts):
+        x, y = scanner[i] * uscale
+        lines.append(f"P{rr.ravel()[i]:03d}-{cc.ravel()[i]:03d},{rr.ravel()[i]},{cc.ravel()[i]},{x:.4f},{y:.4f},{valid[i]},{level[i]:.3f}")
+    (folder / "points.csv").write_text("\n".join(lines) + "\n")
+
+    corners = np.array([[-w / 2 + 0.05, -h / 2 + 0.05], [w / 2 - 0.05, -h / 2 + 0.05], [w / 2 - 0.05, h / 2 - 0.05], [-w / 2 + 0.05, h / 2 - 0.05]])
+    targets = []
+    for k, loc in enumerate(corners, start=1):
+        true_d = np.asarray(s["center"]) + rot @ loc
+        seen = (loc + offset + rng.normal(0, acq["target_noise_m"], 2)) * uscale
+        surveyed = true_d + rng.normal(0, acq["survey_noise_m"], 2)
+        name = f"{s['id'].replace('-', '')}-T{k}"
+        targets.append(
+            f'[[targets]]\nname = "{name}"\nscanner = [{seen[0]:.4f}, {seen[1]:.4f}]\n'
+            f"drawing = [{surveyed[0]:.4f}, {surveyed[1]:.4f}]\n"
+        )
+    manifest = f'''format = "scan-bundle/1"
+
+[scan]
+id = "{s['id']}"
+element = "{s['element']}"
+surveyed = {s['surveyed'].strftime('%Y-%m-%dT%H:%M:%SZ')}
+note = "demo scan generated by overlay demo"
+
+[coordinates]
+kind = "surface"
+unit = "{s['unit']}"
+
+[records]
+sample_rate_hz = {acq['sample_rate_hz']}
+velocity_unit = "{s['velocity_unit']}"
+trigger_s = {acq['trigger_s']}
+
+[geometry]
+source_distance_m = {acq['source_distance_m']}
+head_distance_m = {acq['head_distance_m']}
+air_temperature_c = {acq['air_temperature_c']}
+
+[band]
+hz = [{acq['band_hz'][0]}, {acq['band_hz'][1]}]
+
+''' + "\n".join(targets)
+    (folder / "scan.toml").write_text(manifest)
+    return {"id": s["id"], "element": s["element"], "defects": [d["id"] for d in inside],
+            "n_points": n_pts, "dropouts": int(n_drop), "nan_points": int(acq["nan_points"])}
+
+
+def _ell_radius(xy: np.ndarray, d: dict) -> np.ndarray:
+    r = math.radians(d["rotation_deg"])
+    dx, dy = xy[:, 0] - d["center"][0], xy[:, 1] - d["center"][1]
+    u = dx * math.cos(r) + dy * math.sin(r)
+    v = -dx * math.sin(r) + dy * math.cos(r)
+    return np.sqrt((u / d["semi_axes"][0]) ** 2 + (v / d["semi_axes"][1]) ** 2)
+
+
+def _contains(s: dict, d: dict) -> bool:
+    th = math.radians(-s["scanner_rotation_deg"])
+    dx, dy = d["center"][0] - s["center"][0], d["center"][1] - s["center"][1]
+    u = dx * math.cos(th) - dy * math.sin(th)
+    v = dx * math.sin(th) + dy * math.cos(th)
+    return abs(u) < s["size"][0] / 2 and abs(v) < s["size"][1] / 2
+
+
+def write_asbuilt_dxf(path: Path, st: dict) -> None:
+    """The owner's as-built soffit plan: deck edge, support lines, girder centre lines, labels."""
+    import ezdxf
+
+    doc = ezdxf.new("R2013", setup=True)
+    doc.header["$INSUNITS"] = 6
+    for name, colour in (("DECK-EDGE", 7), ("SUPPORT-LINES", 3), ("GIRDER-CL", 5), ("LABELS", 7)):
+        doc.layers.add(name, color=colour)
+    msp = doc.modelspace()
+    length = float(sum(st["spans_m"]))
+    width = float(st["deck_width_m"])
+    msp.add_lwpolyline([(0, 0), (length, 0), (length, width), (0, width)], close=True, dxfattribs={"layer": "DECK-EDGE"})
+    xs = np.concatenate([[0.0], np.cumsum(st["spans_m"])])
+    names = ["A1"] + [f"P{i}" for i in range(1, len(xs) - 1)] + ["A2"]
+    for x, name in zip(xs, names):
+        msp.add_line((x, -0.5), (x, width + 0.5), dxfattribs={"layer": "SUPPORT-LINES", "linetype": "CENTER"})
+        msp.add_text(name, height=0.35, dxfattribs={"layer": "LABELS"}).set_placement((x + 0.1, width + 0.6))
+    for k, y in enumerate(st["girders_y_m"], start=1):
+        msp.add_line((0, y), (length, y), dxfattribs={"layer": "GIRDER-CL", "linetype": "DASHED"})
+        msp.add_text(f"G{k}", height=0.25, dxfattribs={"layer": "LABELS"}).set_placement((-1.0, y))
+    msp.add_text(f"{st['name']} ({st['id']}) - deck soffit plan, looking up", height=0.4,
+                 dxfattribs={"layer": "LABELS"}).set_placement((0, -1.5))
+    doc.saveas(path)
+
+
+def deck_panels(st: dict) -> list[tuple[str, int, int, list[tuple[float, float]]]]:
+    """(asset id, span, bay, outline in drawing frame) of each soffit panel between girders."""
+    xs = np.concatenate([[0.0], np.cumsum(st["spans_m"])])
+    ys = st["girders_y_m"]
+    out = []
+    for s in range(len(xs) - 1):
+        for b in range(len(ys) - 1):
+            x0, x1, y0, y1 = xs[s], xs[s + 1], ys[b], ys[b + 1]
+            out.append((f"{st['id'].replace('-', '')}-S{s + 1}-B{b + 1}", s + 1, b + 1,
+                        [(x0, y0), (x1, y0), (x1, y1), (x0, y1)]))
+    return out
+
+
+def write_assets(path: Path, st: dict) -> None:
+    """The owner's asset register: deck soffit panels as polygons in the map CRS."""
+    import geopandas as gpd
+    from shapely.geometry import Polygon
+
+    from .frames import from_placement
+
+    to_map = from_placement(tuple(st["origin"]), st["bearing_deg"], 1.0, "m")
+    rows, geoms = [], []
+    for asset_id, span, bay, outline in deck_panels(st):
+        poly = Polygon(to_map.apply(np.array(outline)))
+        rows.append({"asset_id": asset_id, "structure": st["id"], "span": span, "bay": bay,
+                     "element_type": "deck soffit panel", "area_m2": round(poly.area, 3)})
+        geoms.append(poly)
+    if path.exists():
+        path.unlink()
+    gpd.GeoDataFrame(rows, geometry=geoms, crs=st["crs"]).to_file(path, layer="deck_panels", driver="GPKG")

@@ -1,0 +1,72 @@
+"""Vibration energy ratio (VER): each point's band energy against a reference, in dB.
+
+VER = 10·log10(E / E_ref).  The reference stands for healthy concrete.  The
+published convention takes the scan's minimum; a single dropout or a point
+shadowed from the source then sets the reference for the whole scan and lifts
+every VER.  The default here is a low percentile of the valid energies, which
+still sits in the healthy population (most of a scan is sound concrete) but
+ignores the few lowest points.  See docs/energy-ratio.md.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .errors import SignalError
+
+REFERENCES = ("percentile", "minimum")
+DEFAULT_PERCENTILE = 10.0
+
+
+@dataclass(frozen=True)
+class Reference:
+    """The reference energy used for a scan and how it was chosen."""
+
+    method: str
+    energy: float
+    percentile: float | None = None
+    n_points: int = 0
+
+    def describe(self) -> str:
+        how = f"{self.percentile:g}th percentile" if self.method == "percentile" else "scan minimum"
+        return f"{how} of {self.n_points} valid points: {self.energy:.4g} (m/s)^2"
+
+
+def reference_energy(
+    energy: np.ndarray,
+    valid: np.ndarray,
+    method: str = "percentile",
+    percentile: float = DEFAULT_PERCENTILE,
+    source: str | None = None,
+) -> Reference:
+    """Pick the healthy reference energy from the valid points of one scan."""
+    if method not in REFERENCES:
+        raise SignalError(f"unknown reference method {method!r}; choose from {', '.join(REFERENCES)}", source=source)
+    e = np.asarray(energy, dtype=np.float64)[np.asarray(valid, dtype=bool)]
+    e = e[np.isfinite(e)]
+    if e.size == 0:
+        raise SignalError("no valid point left to take a reference energy from", source=source, field="reference")
+    if method == "minimum":
+        ref = float(e.min())
+        pct = None
+    else:
+        if not 0 <= percentile <= 100:
+            raise SignalError(f"reference percentile must lie in 0..100, got {percentile:g}", source=source)
+        ref = float(np.percentile(e, percentile))
+        pct = percentile
+    if not ref > 0:
+        raise SignalError(
+            f"reference energy is {ref:g} ({method}); VER needs a positive reference "
+            "(dead channels among the valid points? mark them valid=0)",
+            source=source,
+            field="reference",
+        )
+    return Reference(method, ref, pct, int(e.size))
+
+
+def ver_db(energy: np.ndarray, reference: float) -> np.ndarray:
+    """10·log10(E/E_ref); zero energy gives -inf, NaN stays NaN."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return 10.0 * np.log10(np.asarray(energy, dtype=np.float64) / reference)

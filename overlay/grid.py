@@ -1,0 +1,104 @@
+"""Arrange scan points on their (possibly curvilinear, possibly incomplete) grid."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .errors import BundleError
+
+
+@dataclass(frozen=True)
+class Grid:
+    """Node coordinates ``x``, ``y`` (rows × cols) and the point index at each node (-1: no point)."""
+
+    x: np.ndarray
+    y: np.ndarray
+    index: np.ndarray
+
+    @property
+    def shape(self) -> tuple[int, int]:
+        return self.index.shape  # type: ignore[return-value]
+
+    def values(self, per_point: np.ndarray, usable: np.ndarray) -> np.ma.MaskedArray:
+        """Per-point values on the grid, masked where there is no point or it is not usable."""
+        has = self.index >= 0
+        out = np.zeros(self.shape, dtype=np.float64)
+        out[has] = per_point[self.index[has]]
+        mask = ~has
+        mask[has] |= ~usable[self.index[has]]
+        mask |= ~np.isfinite(out)
+        out[~np.isfinite(out)] = 0.0
+        return np.ma.MaskedArray(out, mask=mask)
+
+    def spacing(self) -> float:
+        """Median distance between neighbouring nodes, in the grid's coordinate unit."""
+        has = self.index >= 0
+        pairs = [(has[1:, :] & has[:-1, :], 0), (has[:, 1:] & has[:, :-1], 1)]
+        d = [np.hypot(np.diff(self.x, axis=a)[both], np.diff(self.y, axis=a)[both]) for both, a in pairs]
+        all_d = np.concatenate(d)
+        if all_d.size == 0:
+            raise BundleError("grid has no neighbouring points; cannot tell its spacing")
+        return float(np.median(all_d))
+
+
+def grid_from_indices(xy: np.ndarray, row: np.ndarray, col: np.ndarray) -> Grid:
+    """Grid from explicit ``row``/``col``; nodes without a point get coordinates from an affine fit of the rest."""
+    r0, c0 = row - row.min(), col - col.min()
+    shape = (int(r0.max()) + 1, int(c0.max()) + 1)
+    index = np.full(shape, -1, dtype=np.int64)
+    index[r0, c0] = np.arange(len(row))
+    x = np.empty(shape)
+    y = np.empty(shape)
+    design = np.column_stack([np.ones(len(row)), r0, c0])
+    coef, *_ = np.linalg.lstsq(design, xy, rcond=None)
+    rr, cc = np.mgrid[0 : shape[0], 0 : shape[1]]
+    filled = np.stack([np.ones_like(rr), rr, cc], axis=-1) @ coef
+    x[:], y[:] = filled[..., 0], filled[..., 1]
+    x[r0, c0], y[r0, c0] = xy[:, 0], xy[:, 1]
+    return Grid(x, y, index)
+
+
+def infer_grid(xy: np.ndarray, rel_tol: float = 1e-3) -> Grid | None:
+    """A regular axis-aligned grid from coordinates alone, or ``None`` if the points do not form one."""
+    ux = _levels(xy[:, 0], rel_tol)
+    uy = _levels(xy[:, 1], rel_tol)
+    if ux is None or uy is None or len(ux) < 2 or len(uy) < 2:
+        return None
+    col = np.rint((xy[:, 0] - ux[0]) / (ux[1] - ux[0])).astype(np.int64)
+    row = np.rint((xy[:, 1] - uy[0]) / (uy[1] - uy[0])).astype(np.int64)
+    if len(np.unique(row * (col.max() + 1) + col)) != len(xy):
+        return None
+    return grid_from_indices(xy, row, col)
+
+
+def _levels(v: np.ndarray, rel_tol: float) -> np.ndarray | None:
+    u = np.unique(v)
+    if len(u) < 2:
+        return None
+    step = np.diff(u)
+    ref = np.median(step)
+    if ref <= 0 or np.any(np.abs(step / ref - np.rint(step / ref)) > 0.05):
+        return None
+    k = np.rint((u - u[0]) / ref)
+    if np.max(np.abs(u - (u[0] + k * ref))) > rel_tol * max(ref, 1e-12) * 50:
+        return None
+    return u[0] + np.arange(int(k.max()) + 1) * ref
+
+
+def fill_isolated(values: np.ma.MaskedArray, fillable: np.ndarray) -> np.ma.MaskedArray:
+    """Fill masked nodes marked ``fillable`` that have at least two unmasked 4-neighbours with their mean.
+
+    A single dropout inside a zone should not punch a hole into it; nodes
+    with no point at all (outside the scan) are never filled.
+    """
+    v = values.filled(np.nan)
+    pad = np.pad(v, 1, constant_values=np.nan)
+    neigh = np.stack([pad[:-2, 1:-1], pad[2:, 1:-1], pad[1:-1, :-2], pad[1:-1, 2:]])
+    count = np.isfinite(neigh).sum(axis=0)
+    mean = np.nansum(neigh, axis=0) / np.maximum(count, 1)
+    take = np.ma.getmaskarray(values) & fillable & (count >= 2)
+    out = values.copy()
+    out[take] = mean[take]
+    return out

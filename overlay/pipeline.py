@@ -1,0 +1,340 @@
+"""Wire the stages for one scan and for a site: read → gate → spectra → VER → contour → zones → register.
+
+Each stage is a plain function in its own module; this module only passes
+data between them.  Nothing here writes a file.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import warnings
+from dataclasses import dataclass, field
+from typing import Callable
+
+import numpy as np
+import pyproj
+import shapely
+from shapely.geometry import Polygon
+
+from . import __version__
+from .bundle import Scan, read_bundle
+from .cautions import CAUTIONS
+from .contour import level_polygons
+from .energy import Reference, reference_energy, ver_db
+from .errors import BundleError, BundleWarning, RegistrationError, SignalError
+from .frames import UNIT_TO_M, Fit, Similarity, check_fit, check_map_crs, fit_similarity, from_placement, to_crs
+from .gate import Gate, make_gate, window_from_geometry
+from .grid import Grid, fill_isolated, grid_from_indices, infer_grid
+from .site import ScanEntry, Site
+from .spectra import given_spectra, records_spectra
+from .zones import Zone, confidence_factors, order_key, point_stats
+
+
+@dataclass
+class TargetResult:
+    name: str
+    scanner: tuple[float, float]
+    drawing: tuple[float, float]
+    residual: tuple[float, float]
+
+
+@dataclass
+class ScanResult:
+    """Everything one scan contributes to the outputs, in the drawing frame."""
+
+    scan_id: str
+    element: str
+    surveyed: str
+    kind: str
+    payload: str
+    n_points: int
+    gate: Gate | None
+    reference: Reference | None
+    fit: Fit
+    fit_passed: bool
+    spacing_m: float
+    extent: Polygon
+    point_ids: np.ndarray
+    point_xy: np.ndarray
+    energy: np.ndarray
+    ver_db: np.ndarray
+    peak_hz: np.ndarray
+    snr_db: np.ndarray
+    valid: np.ndarray
+    invalid_reason: np.ndarray
+    targets: list[TargetResult]
+    zones: list[Zone]
+
+
+@dataclass
+class RunResult:
+    """A whole run: site, per-scan results, the map placement and run metadata."""
+
+    site: Site
+    scans: list[ScanResult]
+    to_map: Similarity | None
+    crs: pyproj.CRS | None
+    map_fit: Fit | None
+    started: str
+    tool_version: str = __version__
+    cautions: tuple[str, ...] = CAUTIONS
+    warnings: list[str] = field(default_factory=list)
+
+    @property
+    def zones(self) -> list[Zone]:
+        return [z for s in self.scans for z in s.zones]
+
+    @property
+    def unit_m(self) -> float:
+        return UNIT_TO_M[self.site.drawing_unit]
+
+    def settings(self) -> dict[str, object]:
+        s = self.site
+        return {
+            "drawing_unit": s.drawing_unit,
+            "reference": s.reference,
+            "percentile": s.percentile,
+            "classes": ";".join(f"{c.name}>={c.threshold_db:g}dB" for c in s.classes),
+            "min_area_m2": s.min_area_m2,
+            "tolerance": s.tolerance,
+            "accept_misfit": s.accept_misfit,
+            "crs": self.crs.to_string() if self.crs else "",
+        }
+
+
+def choose_gate(scan: Scan) -> Gate:
+    """The explicit gate if the bundle gives one, else the window derived from the geometry."""
+    assert scan.records is not None and scan.sample_rate_hz is not None and scan.band_hz is not None
+    src = str(scan.path / "scan.toml")
+    if scan.gate_s is not None:
+        window, how = scan.gate_s, "explicit gate_s"
+    else:
+        g = scan.geometry
+        if g.source_distance_m is None or g.head_distance_m is None:
+            raise SignalError(
+                "no gate: give [records].gate_s or [geometry].source_distance_m and head_distance_m", source=src, field="gate"
+            )
+        window = window_from_geometry(scan.trigger_s, g.source_distance_m, g.head_distance_m, g.air_temperature_c)
+        how = f"from geometry at {g.air_temperature_c:g} °C"
+    return make_gate(window, scan.sample_rate_hz, int(scan.records.shape[-1]), scan.band_hz[0], how, source=src)
+
+
+def scan_grid(scan: Scan) -> Grid:
+    if scan.row is not None and scan.col is not None:
+        return grid_from_indices(scan.xy, scan.row, scan.col)
+    grid = infer_grid(scan.xy)
+    if grid is None:
+        raise BundleError(
+            "points form no regular grid and carry no row/col columns; add row and col", source=scan.path / "points.csv"
+        )
+    return grid
+
+
+def register_scan(scan: Scan, site: Site, entry_src: str) -> tuple[Fit, bool, list[TargetResult]]:
+    """Fit scanner → drawing from the scan's control targets and check it against the site tolerance."""
+    names, src, dst = [], [], []
+    for t in scan.targets:
+        drawing = site.control_points.get(t.name, t.drawing)
+        if drawing is None:
+            warnings.warn(f"{entry_src}: target {t.name} has no drawing coordinates; not used", BundleWarning, stacklevel=2)
+            continue
+        if t.name in site.control_points and t.drawing is not None:
+            gap = float(np.hypot(*(np.subtract(site.control_points[t.name], t.drawing))))
+            if gap > site.tolerance:
+                warnings.warn(
+                    f"{entry_src}: target {t.name}: site file and bundle differ by {gap:.4f}; using the site file",
+                    BundleWarning,
+                    stacklevel=2,
+                )
+        names.append(t.name)
+        src.append(t.scanner)
+        dst.append(drawing)
+    if len(names) < 2:
+        raise RegistrationError(
+            f"scanner→drawing needs at least 2 targets with drawing coordinates, found {len(names)}"
+            f" ({', '.join(names) or 'none'})",
+            source=entry_src,
+            field="targets",
+        )
+    fit = fit_similarity(np.array(src), np.array(dst), names)
+    passed = check_fit(fit, site.tolerance, site.drawing_unit, accept=site.accept_misfit, source=entry_src)
+    targets = [
+        TargetResult(n, tuple(s), tuple(d), tuple(r)) for n, s, d, r in zip(names, src, dst, fit.residuals.tolist())
+    ]
+    return fit, passed, targets
+
+
+def grid_extent(grid: Grid) -> Polygon:
+    """The scanned area: union of the grid cells whose four corners all carry a point."""
+    has = grid.index >= 0
+    cell = has[:-1, :-1] & has[1:, :-1] & has[1:, 1:] & has[:-1, 1:]
+    r, c = np.nonzero(cell)
+    if r.size == 0:
+        return Polygon()
+    corners = [(r, c), (r + 1, c), (r + 1, c + 1), (r, c + 1), (r, c)]
+    rings = np.stack([np.stack([grid.x[i, j], grid.y[i, j]], axis=-1) for i, j in corners], axis=1)
+    merged = shapely.union_all(shapely.polygons(rings))
+    merged = shapely.simplify(merged, 0)
+    if merged.geom_type == "MultiPolygon":
+        merged = max(merged.geoms, key=lambda g: g.area)
+    return merged
+
+
+def process_scan(
+    scan: Scan, site: Site, entry: ScanEntry, progress: Callable[[int], None] | None = None
+) -> ScanResult:
+    """One scan from its bundle to zones in the drawing frame."""
+    src = str(scan.path)
+    n = scan.n_points
+    reason = np.where(scan.valid, "", "flagged").astype(object)
+    gate: Gate | None = None
+    reference: Reference | None = None
+    snr = np.full(n, np.nan)
+    if scan.payload == "ver":
+        assert scan.ver_db is not None
+        energy = np.full(n, np.nan)
+        ver = scan.ver_db.astype(np.float64)
+        peak = scan.peak_hz if scan.peak_hz is not None else np.full(n, np.nan)
+        valid = scan.valid & np.isfinite(ver)
+        reason[(reason == "") & ~valid] = "no VER value"
+    else:
+        assert scan.band_hz is not None
+        if scan.payload == "records":
+            assert scan.records is not None
+            gate = choose_gate(scan)
+            sp = records_spectra(scan.records, gate, scan.band_hz, scan.velocity_scale, progress=progress)
+        else:
+            assert scan.spectra is not None and scan.frequencies is not None
+            sp = given_spectra(scan.spectra, scan.frequencies, scan.band_hz, scan.velocity_scale)
+        energy, peak, snr = sp.energy, sp.peak_hz, sp.snr_db
+        reason[(reason == "") & ~sp.finite] = "non-finite data"
+        valid = scan.valid & sp.finite
+        if not valid.any():
+            raise SignalError("no valid point in the scan (all flagged or non-finite)", source=src)
+        reference = reference_energy(energy, valid, site.reference, site.percentile, source=src)
+        ver = ver_db(energy, reference.energy)
+        bad = valid & ~np.isfinite(ver)
+        reason[bad] = "zero energy"
+        valid &= np.isfinite(ver)
+    if not valid.any():
+        raise SignalError("no valid point in the scan", source=src)
+
+    grid = scan_grid(scan)
+    spacing = grid.spacing()
+    fit, passed, targets = register_scan(scan, site, src)
+    to_drawing = fit.transform
+    u = UNIT_TO_M[site.drawing_unit]
+
+    values = fill_isolated(grid.values(ver, valid), grid.index >= 0)
+    element = entry.element or scan.element or ""
+    surveyed = scan.surveyed.astimezone(dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ") if scan.surveyed else ""
+    zones: list[Zone] = []
+    for zc in site.classes:
+        candidates = []
+        for poly in level_polygons(grid, values, zc.threshold_db):
+            outline = to_drawing.apply_geometry(poly)
+            area_m2 = outline.area * u * u
+            if area_m2 < site.min_area_m2:
+                continue
+            candidates.append((order_key(outline), poly, outline, area_m2))
+        candidates.sort(key=lambda c: c[0])
+        for k, (_, poly, outline, area_m2) in enumerate(candidates, start=1):
+            st = point_stats(poly, scan.xy, ver, peak, valid, spacing)
+            support, contrast, quality = confidence_factors(st["n_points"], st["ver_max_db"], zc.threshold_db, st["valid_share"])
+            zones.append(
+                Zone(
+                    zone_id=f"{scan.scan_id}.{zc.name}.{k:02d}",
+                    scan_id=scan.scan_id,
+                    element=element,
+                    class_name=zc.name,
+                    threshold_db=zc.threshold_db,
+                    outline=outline,
+                    area_m2=area_m2,
+                    perimeter_m=outline.length * u,
+                    n_points=int(st["n_points"]),
+                    ver_max_db=st["ver_max_db"],
+                    ver_mean_db=st["ver_mean_db"],
+                    peak_hz=st["peak_hz"],
+                    confidence=round(support * contrast * quality, 4),
+                    conf_support=round(support, 4),
+                    conf_contrast=round(contrast, 4),
+                    conf_quality=round(quality, 4),
+                    surveyed=surveyed,
+                )
+            )
+    return ScanResult(
+        scan_id=scan.scan_id,
+        element=element,
+        surveyed=surveyed,
+        kind=scan.kind,
+        payload=scan.payload,
+        n_points=n,
+        gate=gate,
+        reference=reference,
+        fit=fit,
+        fit_passed=passed,
+        spacing_m=spacing if scan.kind == "surface" else spacing * fit.transform.scale * u,
+        extent=to_drawing.apply_geometry(grid_extent(grid)),
+        point_ids=scan.point_ids,
+        point_xy=to_drawing.apply(scan.xy),
+        energy=energy,
+        ver_db=ver,
+        peak_hz=peak,
+        snr_db=snr,
+        valid=valid,
+        invalid_reason=reason,
+        targets=targets,
+        zones=zones,
+    )
+
+
+def map_placement(site: Site, site_xy: np.ndarray) -> tuple[Similarity | None, pyproj.CRS | None, Fit | None]:
+    """Drawing → map transform and CRS from the site file, checked with pyproj."""
+    m = site.map
+    if m is None:
+        return None, None, None
+    src = str(site.path)
+    crs = to_crs(m.crs, source=src, field="map.crs")
+    fit = None
+    if m.origin is not None:
+        t = from_placement(m.origin, m.bearing_deg, m.scale, site.drawing_unit)
+    else:
+        fit = fit_similarity(
+            np.array([mo.drawing for mo in m.monuments]),
+            np.array([mo.map for mo in m.monuments]),
+            [mo.name for mo in m.monuments],
+            what="monuments",
+        )
+        check_fit(fit, m.tolerance_m, "m", accept=site.accept_misfit, source=src)
+        t = fit.transform
+    check_map_crs(crs, t.apply(site_xy), source=src)
+    return t, crs, fit
+
+
+def run_site(
+    site: Site,
+    *,
+    on_scan: Callable[[str], None] | None = None,
+    progress: Callable[[int], None] | None = None,
+) -> RunResult:
+    """Process every scan of a site; the first failing scan stops the run with its error."""
+    started = dt.datetime.now(dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+    results: list[ScanResult] = []
+    caught: list[str] = []
+    with warnings.catch_warnings(record=True) as seen:
+        warnings.simplefilter("always")
+        for entry in site.scans:
+            scan = read_bundle(entry.bundle)
+            if on_scan is not None:
+                on_scan(scan.scan_id)
+            results.append(process_scan(scan, site, entry, progress))
+        ids = [r.scan_id for r in results]
+        dup = {i for i in ids if ids.count(i) > 1}
+        if dup:
+            raise BundleError(f"scan id(s) {', '.join(sorted(dup))} used by more than one bundle", source=site.path)
+        corners = np.concatenate([np.asarray(r.extent.exterior.coords) for r in results if not r.extent.is_empty] or [np.zeros((0, 2))])
+        to_map, crs, map_fit = map_placement(site, corners)
+    for w in seen:
+        caught.append(str(w.message))
+        warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
+    return RunResult(site, results, to_map, crs, map_fit, started, warnings=caught)

@@ -1,0 +1,237 @@
+"""The site file (TOML, ``overlay-site/1``): everything a run needs besides the bundles.
+
+See docs/site-file.md for every field.  Paths in the file are relative to it.
+"""
+
+from __future__ import annotations
+
+import glob
+import warnings
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from .energy import DEFAULT_PERCENTILE, REFERENCES
+from .errors import OverlayWarning, SiteFileError
+from .frames import UNIT_TO_M
+from .tomlio import Fields, load_toml
+
+FORMAT = "overlay-site/1"
+DEFAULT_CLASSES = (("watch", 6.0), ("suspect", 10.0), ("probable", 15.0))
+DEFAULT_FORMATS = ("dxf", "gpkg", "quantities-csv")
+
+
+@dataclass(frozen=True)
+class ZoneClass:
+    name: str
+    threshold_db: float
+
+
+@dataclass(frozen=True)
+class Monument:
+    name: str
+    drawing: tuple[float, float]
+    map: tuple[float, float]
+
+
+@dataclass(frozen=True)
+class MapFrame:
+    """Where the drawing sits in a projected CRS: declared placement or monuments."""
+
+    crs: str
+    origin: tuple[float, float] | None = None
+    bearing_deg: float = 90.0
+    scale: float = 1.0
+    monuments: tuple[Monument, ...] = ()
+    tolerance_m: float = 0.05
+
+
+@dataclass(frozen=True)
+class ScanEntry:
+    bundle: Path
+    element: str | None = None
+
+
+@dataclass
+class Site:
+    path: Path
+    name: str
+    structure: str
+    drawing_unit: str
+    scans: list[ScanEntry]
+    classes: list[ZoneClass]
+    control_points: dict[str, tuple[float, float]] = field(default_factory=dict)
+    map: MapFrame | None = None
+    tolerance: float = 0.02
+    accept_misfit: bool = False
+    reference: str = "percentile"
+    percentile: float = DEFAULT_PERCENTILE
+    min_area_m2: float = 0.01
+    basename: str = "overlay"
+    formats: tuple[str, ...] = DEFAULT_FORMATS
+
+    @property
+    def folder(self) -> Path:
+        return self.path.parent
+
+
+def read_site(path: str | Path) -> Site:
+    """Read and validate a site file; raise ``SiteFileError`` naming the field on the first problem."""
+    path = Path(path)
+    doc = Fields(load_toml(path, SiteFileError), "", path, SiteFileError)
+    fmt = doc.string("format", required=True)
+    if fmt != FORMAT:
+        raise doc.fail("format", f"unsupported format {fmt!r}; this version reads {FORMAT!r}")
+
+    s = _table(doc, "site", required=True)
+    name = s.string("name", required=True) or ""
+    structure = s.string("structure", "") or ""
+    unit = s.choice("drawing_unit", tuple(UNIT_TO_M), default="m")
+
+    reg = _table(doc, "registration")
+    tolerance = reg.number("tolerance", 0.02, positive=True) or 0.02
+    accept = bool(_bool(reg, "accept_misfit", False))
+
+    en = _table(doc, "energy")
+    reference = en.choice("reference", REFERENCES, default="percentile")
+    percentile = en.number("percentile", DEFAULT_PERCENTILE, minimum=0.0) or 0.0
+    if percentile > 100:
+        raise en.fail("percentile", f"must lie in 0..100, got {percentile:g}")
+
+    zt = _table(doc, "zones")
+    min_area = zt.number("min_area_m2", 0.01, minimum=0.0) or 0.0
+    classes = _classes(zt)
+
+    cps: dict[str, tuple[float, float]] = {}
+    cp = doc.table_of("control_points")
+    if cp is not None:
+        for key in list(cp.table):
+            value = cp.pair(key)
+            assert value is not None
+            cps[key] = value
+
+    scans = _scans(doc, path)
+    map_frame = _map(doc)
+
+    out = _table(doc, "outputs")
+    basename = out.string("basename", "overlay") or "overlay"
+    if any(c in basename for c in '/\\:*?"<>|') or basename.startswith("."):
+        raise out.fail("basename", f"must be a plain file name stem, got {basename!r}")
+    formats = out.raw("formats", list(DEFAULT_FORMATS))
+    if not isinstance(formats, list) or not all(isinstance(f, str) for f in formats) or not formats:
+        raise out.fail("formats", f"must be a non-empty list of exporter names, got {formats!r}")
+
+    for t in (doc, s, reg, en, zt, out):
+        _warn_unknown(t)
+    return Site(
+        path=path,
+        name=name,
+        structure=structure,
+        drawing_unit=unit,
+        scans=scans,
+        classes=classes,
+        control_points=cps,
+        map=map_frame,
+        tolerance=tolerance,
+        accept_misfit=accept,
+        reference=reference,
+        percentile=percentile,
+        min_area_m2=min_area,
+        basename=basename,
+        formats=tuple(formats),
+    )
+
+
+def _table(doc: Fields, key: str, *, required: bool = False) -> Fields:
+    t = doc.table_of(key)
+    if t is None:
+        if required:
+            raise doc.fail(key, "table is required")
+        t = Fields({}, key, doc.source, SiteFileError)
+    return t
+
+
+def _bool(t: Fields, key: str, default: bool) -> bool:
+    v = t.raw(key, default)
+    if not isinstance(v, bool):
+        raise t.fail(key, f"must be true or false, got {v!r}")
+    return v
+
+
+def _classes(zt: Fields) -> list[ZoneClass]:
+    raw = zt.raw("classes")
+    if raw is None:
+        return [ZoneClass(n, t) for n, t in DEFAULT_CLASSES]
+    if not isinstance(raw, list) or not raw:
+        raise zt.fail("classes", "must be a non-empty array of tables [[zones.classes]]")
+    out: list[ZoneClass] = []
+    for i, item in enumerate(raw):
+        c = Fields(item, f"zones.classes[{i}]", zt.source, SiteFileError)
+        name = c.string("name", required=True) or ""
+        if not name.replace("-", "").replace("_", "").isalnum():
+            raise c.fail("name", f"must be letters, digits, - or _, got {name!r}")
+        out.append(ZoneClass(name, c.number("threshold_db", required=True) or 0.0))
+        _warn_unknown(c)
+    names = [c.name for c in out]
+    if len(set(names)) != len(names):
+        raise zt.fail("classes", f"class names must be unique, got {names}")
+    levels = [c.threshold_db for c in out]
+    if levels != sorted(levels) or len(set(levels)) != len(levels):
+        raise zt.fail("classes", f"thresholds must rise strictly from class to class, got {levels}")
+    return out
+
+
+def _scans(doc: Fields, path: Path) -> list[ScanEntry]:
+    raw = doc.raw("scans")
+    if not isinstance(raw, list) or not raw:
+        raise doc.fail("scans", "at least one [[scans]] entry with a bundle path is required")
+    out: list[ScanEntry] = []
+    for i, item in enumerate(raw):
+        t = Fields(item, f"scans[{i}]", path, SiteFileError)
+        pattern = t.string("bundle", required=True) or ""
+        element = t.string("element")
+        full = path.parent / pattern
+        if glob.has_magic(pattern):
+            found = sorted(Path(p) for p in glob.glob(str(full)) if Path(p).is_dir())
+            if not found:
+                raise t.fail("bundle", f"pattern {pattern!r} matches no folder")
+            out.extend(ScanEntry(p, element) for p in found)
+        else:
+            out.append(ScanEntry(full, element))
+        _warn_unknown(t)
+    return out
+
+
+def _map(doc: Fields) -> MapFrame | None:
+    m = doc.table_of("map")
+    if m is None:
+        return None
+    crs = m.raw("crs")
+    if crs is None:
+        raise m.fail("crs", "is required (EPSG code, 'EPSG:n' or WKT)")
+    if isinstance(crs, int) and not isinstance(crs, bool):
+        crs = f"EPSG:{crs}"
+    if not isinstance(crs, str):
+        raise m.fail("crs", f"must be an EPSG code or text, got {crs!r}")
+    origin = m.pair("origin")
+    bearing = m.number("bearing_deg", 90.0) or 0.0
+    scale = m.number("scale", 1.0, positive=True) or 1.0
+    tol = m.number("tolerance_m", 0.05, positive=True) or 0.05
+    monuments: list[Monument] = []
+    for i, item in enumerate(m.raw("monuments", []) or []):
+        t = Fields(item, f"map.monuments[{i}]", doc.source, SiteFileError)
+        d, mp = t.pair("drawing", required=True), t.pair("map", required=True)
+        assert d is not None and mp is not None
+        monuments.append(Monument(t.string("name", f"M{i + 1}") or "", d, mp))
+        _warn_unknown(t)
+    if origin is None and not monuments:
+        raise m.fail("origin", "give either origin (+ bearing_deg, scale) or [[map.monuments]]")
+    if origin is not None and monuments:
+        raise m.fail("monuments", "give either origin or monuments, not both")
+    _warn_unknown(m)
+    return MapFrame(crs, origin, bearing, scale, tuple(monuments), tol)
+
+
+def _warn_unknown(t: Fields) -> None:
+    extra = t.unknown()
+    if extra:
+        warnings.warn(f"{t.source}: ignoring unknown field(s) {', '.join(extra)}", OverlayWarning, stacklevel=3)

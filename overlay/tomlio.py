@@ -1,0 +1,127 @@
+"""Reading TOML files with errors that name the file and the line."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+from typing import Any
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover - exercised only on 3.10
+    import tomli as tomllib
+
+from .errors import OverlayError
+
+
+def load_toml(path: Path, error: type[OverlayError]) -> dict[str, Any]:
+    """Parse ``path``; a missing file or a syntax error becomes ``error`` naming the file."""
+    if not path.is_file():
+        raise error("file not found", source=path)
+    try:
+        with path.open("rb") as fh:
+            return tomllib.load(fh)
+    except tomllib.TOMLDecodeError as exc:
+        raise error(f"not valid TOML ({exc})", source=path) from exc
+    except UnicodeDecodeError as exc:
+        raise error("not UTF-8 text", source=path) from exc
+
+
+class Fields:
+    """Typed access to one TOML table, each failure naming file and dotted field.
+
+    Keeps track of the keys it was asked for, so the caller can warn about the
+    unknown ones (the bundle format asks readers to ignore them with a warning).
+    """
+
+    def __init__(self, table: Any, prefix: str, source: Path, error: type[OverlayError]):
+        if not isinstance(table, dict):
+            raise error("must be a table", source=source, field=prefix or None)
+        self.table = table
+        self.prefix = prefix
+        self.source = source
+        self.error = error
+        self.seen: set[str] = set()
+
+    def name(self, key: str) -> str:
+        return f"{self.prefix}.{key}" if self.prefix else key
+
+    def fail(self, key: str, problem: str) -> OverlayError:
+        return self.error(problem, source=self.source, field=self.name(key))
+
+    def has(self, key: str) -> bool:
+        self.seen.add(key)
+        return key in self.table
+
+    def raw(self, key: str, default: Any = None) -> Any:
+        self.seen.add(key)
+        return self.table.get(key, default)
+
+    def string(self, key: str, default: str | None = None, *, required: bool = False) -> str | None:
+        value = self.raw(key)
+        if value is None:
+            if required:
+                raise self.fail(key, "is required")
+            return default
+        if not isinstance(value, str):
+            raise self.fail(key, f"must be text, got {value!r}")
+        return value
+
+    def choice(self, key: str, choices: tuple[str, ...], default: str | None = None) -> str:
+        value = self.string(key, default, required=default is None)
+        assert value is not None
+        if value not in choices:
+            raise self.fail(key, f"must be one of {', '.join(repr(c) for c in choices)}, got {value!r}")
+        return value
+
+    def number(
+        self,
+        key: str,
+        default: float | None = None,
+        *,
+        required: bool = False,
+        positive: bool = False,
+        minimum: float | None = None,
+    ) -> float | None:
+        value = self.raw(key)
+        if value is None:
+            if required:
+                raise self.fail(key, "is required")
+            return default
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            raise self.fail(key, f"must be a number, got {value!r}")
+        value = float(value)
+        if value != value or value in (float("inf"), float("-inf")):
+            raise self.fail(key, f"must be finite, got {value!r}")
+        if positive and value <= 0:
+            raise self.fail(key, f"must be positive, got {value:g}")
+        if minimum is not None and value < minimum:
+            raise self.fail(key, f"must be at least {minimum:g}, got {value:g}")
+        return value
+
+    def pair(self, key: str, *, required: bool = False) -> tuple[float, float] | None:
+        value = self.raw(key)
+        if value is None:
+            if required:
+                raise self.fail(key, "is required")
+            return None
+        if (
+            not isinstance(value, list)
+            or len(value) != 2
+            or any(isinstance(v, bool) or not isinstance(v, (int, float)) for v in value)
+        ):
+            raise self.fail(key, f"must be a pair of numbers [a, b], got {value!r}")
+        a, b = float(value[0]), float(value[1])
+        if not all(v == v and abs(v) != float("inf") for v in (a, b)):
+            raise self.fail(key, f"must be finite, got {value!r}")
+        return a, b
+
+    def table_of(self, key: str) -> "Fields | None":
+        value = self.raw(key)
+        if value is None:
+            return None
+        return Fields(value, self.name(key), self.source, self.error)
+
+    def unknown(self) -> list[str]:
+        """Dotted names of keys present but never asked for."""
+        return [self.name(k) for k in self.table if k not in self.seen]
