@@ -44,10 +44,12 @@ def main(argv: Sequence[str] | None = None) -> int:
     if args.command is None:
         parser.print_help()
         return EXIT_USAGE
-    warnings.simplefilter("default", OverlayWarning)
-    warnings.formatwarning = lambda msg, cat, *a, **k: f"warning: {msg}\n"  # type: ignore[assignment]
+    shown = warnings.showwarning
+    warnings.showwarning = _show_warning
     try:
-        return int(args.func(args) or 0)
+        with warnings.catch_warnings():
+            warnings.simplefilter("default", OverlayWarning)
+            return int(args.func(args) or 0)
     except OverlayError as exc:
         if args.verbose:
             traceback.print_exc()
@@ -61,6 +63,13 @@ def main(argv: Sequence[str] | None = None) -> int:
             traceback.print_exc()
         print(f"overlay: unexpected error: {type(exc).__name__}: {exc} (run with -v for the traceback)", file=sys.stderr)
         return EXIT_UNEXPECTED
+    finally:
+        warnings.showwarning = shown
+
+
+def _show_warning(message: Warning | str, category: type[Warning], *args: object, **kwargs: object) -> None:
+    """Warnings as one plain line on stderr, without the source line Python would add."""
+    print(f"overlay: warning: {message}", file=sys.stderr)
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -7,6 +7,7 @@ site file, geometries stay in drawing coordinates (metres) with no CRS.
 from __future__ import annotations
 
 import json
+import warnings
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -50,12 +51,15 @@ class GeoPackageExporter:
             ("scan_extents", _extents(result, move, crs), "Polygon"),
             ("targets", _targets(result, move, crs), "Point"),
         ]
-        for name, frame, gtype in layers:
-            pyogrio.write_dataframe(
-                frame, path, layer=name, driver="GPKG", geometry_type=gtype, promote_to_multi=False,
-                dataset_options=GPKG_OPTIONS if name == "zones" else None,
-            )
-        pyogrio.write_dataframe(_runs(result), path, layer="runs", driver="GPKG")
+        with warnings.catch_warnings():
+            # without a map frame the layers are in drawing metres with no CRS, on purpose
+            warnings.filterwarnings("ignore", message="'crs' was not provided")
+            for name, frame, gtype in layers:
+                pyogrio.write_dataframe(
+                    frame, path, layer=name, driver="GPKG", geometry_type=gtype, promote_to_multi=False,
+                    dataset_options=GPKG_OPTIONS if name == "zones" else None,
+                )
+            pyogrio.write_dataframe(_runs(result), path, layer="runs", driver="GPKG")
 
 
 def _points(result: "RunResult", move: Any, crs: Any) -> gpd.GeoDataFrame:

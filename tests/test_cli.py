@@ -1,0 +1,123 @@
+"""Command line: exit codes of DESIGN.md §6, one-line errors, nothing written on failure."""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from overlay.cli.main import main
+
+from .conftest import write_bundle, write_site
+
+
+def _bump_bundle(folder: Path, **kw: object) -> Path:
+    """A 21 × 21 bundle with ready VER: a bump of 20 dB in the middle."""
+    rr, cc = np.mgrid[0:21, 0:21]
+    r2 = ((cc - 10) * 0.05) ** 2 + ((rr - 10) * 0.05) ** 2
+    ver = (20.0 - 200.0 * r2).ravel()
+    return write_bundle(folder, n_rows=21, n_cols=21, spacing=0.05, payload="ver", ver=ver,
+                        points_header="id,row,col,x,y,ver_db", **kw)
+
+
+@pytest.fixture
+def site(tmp_path: Path) -> Path:
+    _bump_bundle(tmp_path / "S-1")
+    return write_site(tmp_path, ["S-1"])
+
+
+def _files(folder: Path) -> list[Path]:
+    return sorted(p for p in folder.rglob("*") if p.is_file()) if folder.exists() else []
+
+
+def test_run_writes_outputs_and_refuses_to_overwrite(site: Path, tmp_path: Path, capsys: pytest.CaptureFixture) -> None:
+    out = tmp_path / "out"
+    assert main(["run", str(site), "--out", str(out)]) == 0
+    names = {p.name for p in _files(out)}
+    assert names == {"overlay.dxf", "overlay.gpkg", "overlay-quantities.csv", "overlay-report.txt"}
+    stamp = {p: p.read_bytes() for p in _files(out)}
+    capsys.readouterr()
+    assert main(["run", str(site), "--out", str(out)]) == 5
+    err = capsys.readouterr().err.strip()
+    assert err.startswith("overlay: error:") and "--overwrite" in err and len(err.splitlines()) == 1
+    assert {p: p.read_bytes() for p in _files(out)} == stamp  # untouched
+    assert main(["run", str(site), "--out", str(out), "--overwrite"]) == 0
+
+
+def test_bad_bundle_exit_3_one_line_nothing_written(site: Path, tmp_path: Path, capsys: pytest.CaptureFixture) -> None:
+    pts = tmp_path / "S-1" / "points.csv"
+    pts.write_text(pts.read_text().replace("P3,", "P2,", 1))
+    out = tmp_path / "out"
+    assert main(["run", str(site), "--out", str(out)]) == 3
+    err = capsys.readouterr().err.strip()
+    assert len(err.splitlines()) == 1 and "points.csv: line 5, column id: duplicate point id 'P2'" in err
+    assert _files(out) == []
+
+
+def test_misfit_exit_4_then_override(tmp_path: Path, capsys: pytest.CaptureFixture) -> None:
+    folder = _bump_bundle(tmp_path / "S-1")
+    toml = folder / "scan.toml"
+    toml.write_text(toml.read_text().replace("drawing = [11.0, 20.0]", "drawing = [11.05, 20.0]"))
+    site = write_site(tmp_path, ["S-1"])
+    out = tmp_path / "out"
+    assert main(["run", str(site), "--out", str(out)]) == 4
+    assert "fit misses B by" in capsys.readouterr().err
+    assert _files(out) == []
+    assert main(["run", str(site), "--out", str(out), "--accept-misfit"]) == 0
+    assert "MISFIT ACCEPTED BY OVERRIDE" in (out / "overlay-report.txt").read_text()
+
+
+def test_unknown_epsg_exit_4(tmp_path: Path, capsys: pytest.CaptureFixture) -> None:
+    _bump_bundle(tmp_path / "S-1")
+    site = write_site(tmp_path, ["S-1"], extra='\n[map]\ncrs = "EPSG:999999"\norigin = [0.0, 0.0]\n')
+    assert main(["run", str(site), "--out", str(tmp_path / "out")]) == 4
+    assert "unknown or invalid CRS 'EPSG:999999'" in capsys.readouterr().err
+
+
+def test_unknown_exporter_names_choices(tmp_path: Path, capsys: pytest.CaptureFixture) -> None:
+    _bump_bundle(tmp_path / "S-1")
+    site = write_site(tmp_path, ["S-1"], extra='\n[outputs]\nformats = ["dxf", "shapefile"]\n')
+    assert main(["run", str(site), "--out", str(tmp_path / "out")]) == 3
+    err = capsys.readouterr().err
+    assert "outputs.formats: unknown exporter 'shapefile'; available: dxf, gpkg, quantities-csv" in err
+    assert _files(tmp_path / "out") == []
+
+
+def test_missing_site_file_exit_3(tmp_path: Path, capsys: pytest.CaptureFixture) -> None:
+    assert main(["run", str(tmp_path / "nope.toml")]) == 3
+    assert "nope.toml: file not found" in capsys.readouterr().err
+
+
+def test_ready_ver_run_finds_the_bump(site: Path, tmp_path: Path) -> None:
+    out = tmp_path / "out"
+    assert main(["run", str(site), "--out", str(out), "-q"]) == 0
+    rows = (out / "overlay-quantities.csv").read_text().splitlines()
+    # 20 − 200 r² ≥ 6 dB ↔ r ≤ 0.2646 m: area π·0.07 = 0.2199 m² (hand-worked), within 2 %
+    watch = [r for r in rows if r.startswith("zone,EL-1,watch")]
+    assert len(watch) == 1
+    assert float(watch[0].split(",")[6]) == pytest.approx(np.pi * 0.07, rel=0.02)
+
+
+def test_describe(bundle: Path, capsys: pytest.CaptureFixture) -> None:
+    assert main(["describe", str(bundle)]) == 0
+    out = capsys.readouterr().out
+    assert "scan S-T1" in out and "6 rows x 8 cols" in out and "targets     4" in out and "gate" in out
+
+
+def test_usage_errors_exit_2(capsys: pytest.CaptureFixture) -> None:
+    assert main([]) == 2
+    with pytest.raises(SystemExit) as info:
+        main(["run"])
+    assert info.value.code == 2
+
+
+def test_console_script_and_module_entry() -> None:
+    script = str(Path(sys.executable).parent / "overlay")
+    for cmd in ([script, "--version"], [sys.executable, "-m", "overlay", "--version"]):
+        done = subprocess.run(cmd, capture_output=True, text=True, check=False)
+        assert done.returncode == 0 and done.stdout.startswith("overlay "), done
+    done = subprocess.run([script, "exporters"], capture_output=True, text=True, check=False)
+    assert done.returncode == 0 and "quantities-csv" in done.stdout

@@ -1,0 +1,131 @@
+"""Frames: similarity fits against EPSG Guidance Note 7-2, CRS checks with pyproj."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from overlay.errors import CRSCheckError, RegistrationError, RegistrationWarning
+from overlay.frames import Similarity, check_fit, check_map_crs, fit_similarity, from_placement, to_crs, transform_xy
+
+# EPSG Guidance Note 7-2, method 9621 (2D similarity), example ED50 / UTM 31N → ETRS89 / UTM 31N:
+# XT = XT0 + M(XS·cosθ + YS·sinθ), YT = YT0 + M(−XS·sinθ + YS·cosθ)
+XT0, YT0, M, THETA = -129.549, -208.185, 1.0000015504, math.radians(1.56504 / 3600)
+
+
+def _gn72_similarity() -> Similarity:
+    # our form x' = a·x − b·y + tx, y' = b·x + a·y + ty, so a = M·cosθ and b = −M·sinθ (sign of θ!)
+    return Similarity(M * math.cos(THETA), -M * math.sin(THETA), XT0, YT0)
+
+
+def test_gn72_similarity_worked_example() -> None:
+    # (300000, 4500000) → (299905.060, 4499796.515), 1 mm (GN7-2, 9621)
+    x, y = _gn72_similarity().apply(np.array([300000.0, 4500000.0]))
+    assert x == pytest.approx(299905.060, abs=1e-3)
+    assert y == pytest.approx(4499796.515, abs=1e-3)
+
+
+def test_fit_recovers_gn72_parameters_from_exact_points() -> None:
+    src = np.array([[300000.0, 4500000.0], [310000.0, 4500000.0], [305000.0, 4512000.0], [298000.0, 4490000.0]])
+    dst = _gn72_similarity().apply(src)
+    fit = fit_similarity(src, dst, ["a", "b", "c", "d"])
+    assert fit.transform.scale == pytest.approx(M, rel=1e-9)
+    assert -math.radians(fit.transform.rotation_deg) == pytest.approx(THETA, rel=1e-6)
+    assert fit.transform.tx == pytest.approx(XT0, abs=1e-4) and fit.transform.ty == pytest.approx(YT0, abs=1e-4)
+    assert fit.rms < 1e-6
+
+
+def test_residuals_match_hand_check() -> None:
+    # unit square, target B moved 10 mm in x: the fit spreads the error, residuals sum to zero and
+    # B keeps the largest one.
+    src = np.array([[0.0, 0.0], [1.0, 0.0], [1.0, 1.0], [0.0, 1.0]])
+    dst = src.copy()
+    dst[1, 0] += 0.01
+    fit = fit_similarity(src, dst, ["A", "B", "C", "D"])
+    np.testing.assert_allclose(fit.residuals, dst - fit.transform.apply(src), atol=1e-15)
+    np.testing.assert_allclose(fit.residuals.sum(axis=0), 0.0, atol=1e-12)
+    assert fit.worst[0] == "B"
+    # by hand, centred on the centroids (0.5, 0.5) and (0.5025, 0.5):
+    # Σ(s·d) = 2.005, Σ|s|² = 2 → a = 1.0025;  Σ(sx·dy − sy·dx) = 0.005 → b = 0.0025
+    assert fit.transform.a == pytest.approx(1.0025) and fit.transform.b == pytest.approx(0.0025)
+    assert fit.rms == pytest.approx(math.sqrt(np.mean(np.sum(fit.residuals**2, axis=1))))
+
+
+def test_noisy_targets_recover_within_noise() -> None:
+    rng = np.random.default_rng(0)
+    truth = Similarity(math.cos(0.3) * 1.0, math.sin(0.3), 412.0, 8.0)
+    src = rng.uniform(-2, 2, (8, 2))
+    dst = truth.apply(src) + rng.normal(0, 0.001, (8, 2))
+    fit = fit_similarity(src, dst, [f"T{i}" for i in range(8)])
+    assert abs(fit.transform.scale - 1.0) < 1e-3
+    assert abs(fit.transform.rotation_deg - math.degrees(0.3)) < 0.05
+    assert 0.0003 < fit.rms < 0.003
+
+
+def test_too_few_and_coincident_targets() -> None:
+    with pytest.raises(RegistrationError, match="at least 2 targets, got 1 \\(T1\\)"):
+        fit_similarity(np.zeros((1, 2)), np.zeros((1, 2)), ["T1"])
+    with pytest.raises(RegistrationError, match="T1, T2 coincide"):
+        fit_similarity(np.ones((2, 2)), np.zeros((2, 2)), ["T1", "T2"])
+
+
+def test_tolerance_stops_unless_accepted() -> None:
+    src = np.array([[0.0, 0.0], [1.0, 0.0], [1.0, 1.0]])
+    dst = src.copy()
+    dst[2] += 0.05
+    fit = fit_similarity(src, dst, ["A", "B", "C"])
+    with pytest.raises(RegistrationError) as info:
+        check_fit(fit, 0.01, "m")
+    assert info.value.exit_code == 4 and "misses" in str(info.value)
+    with pytest.warns(RegistrationWarning, match="accepted by override"):
+        assert check_fit(fit, 0.01, "m", accept=True) is False
+
+
+def test_placement_bearing_convention() -> None:
+    # bearing 90°: drawing +x points east, +y north; bearing 0°: +x north, +y west (hand-worked)
+    east = from_placement((1000.0, 2000.0), 90.0, 1.0, "m")
+    np.testing.assert_allclose(east.apply(np.array([[1.0, 0.0], [0.0, 1.0]])), [[1001.0, 2000.0], [1000.0, 2001.0]], atol=1e-12)
+    north = from_placement((0.0, 0.0), 0.0, 1.0, "m")
+    np.testing.assert_allclose(north.apply(np.array([[1.0, 0.0], [0.0, 1.0]])), [[0.0, 1.0], [-1.0, 0.0]], atol=1e-12)
+    mm = from_placement((0.0, 0.0), 90.0, 1.0, "mm")
+    np.testing.assert_allclose(mm.apply(np.array([1000.0, 0.0])), [1.0, 0.0], atol=1e-12)
+
+
+def test_compose_equals_sequence() -> None:
+    a, b = Similarity(0.9, 0.2, 1.0, -2.0), Similarity(1.1, -0.3, 5.0, 7.0)
+    p = np.array([[0.3, 0.7], [-2.0, 4.0]])
+    np.testing.assert_allclose(a.then(b).apply(p), b.apply(a.apply(p)), atol=1e-12)
+
+
+def test_gn72_transverse_mercator_through_our_crs_path() -> None:
+    # EPSG Guidance Note 7-2, method 9807, OSGB 1936 / British National Grid (EPSG:27700) from EPSG:4277:
+    # 50°30'00"N, 0°30'00"E → E 577274.99, N 69740.50 (0.02 m); inverse to 1e-7° (CHECKS.md)
+    e, n = transform_xy(np.array([0.5, 50.5]), "EPSG:4277", 27700)
+    assert e == pytest.approx(577274.99, abs=0.02)
+    assert n == pytest.approx(69740.50, abs=0.02)
+    lon, lat = transform_xy(np.array([e, n]), "EPSG:27700", "EPSG:4277")
+    assert lon == pytest.approx(0.5, abs=1e-7) and lat == pytest.approx(50.5, abs=1e-7)
+
+
+def test_crs_normaliser_accepts_usual_forms() -> None:
+    wkt = to_crs(25832).to_wkt()
+    for form in (25832, "EPSG:25832", wkt, to_crs("EPSG:25832")):
+        assert to_crs(form).to_epsg() == 25832
+
+
+def test_unknown_epsg_is_a_crs_error_exit_4() -> None:
+    with pytest.raises(CRSCheckError) as info:
+        to_crs("EPSG:999999")
+    assert info.value.exit_code == 4
+
+
+def test_map_crs_must_be_projected_metric_and_cover_site() -> None:
+    with pytest.raises(CRSCheckError, match="not a projected CRS"):
+        check_map_crs(to_crs(4326), np.array([[9.0, 51.0]]))
+    with pytest.raises(CRSCheckError, match="metres are required"):
+        check_map_crs(to_crs(2277), np.array([[3000000.0, 10000000.0]]))  # Texas Central, US survey feet
+    check_map_crs(to_crs(25832), np.array([[512345.0, 5712468.0]]))  # inside 6°E..12°E
+    with pytest.warns(RegistrationWarning, match="outside the area of use of EPSG:25832"):
+        check_map_crs(to_crs(25832), np.array([[-2500000.0, 5712468.0]]))

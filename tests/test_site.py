@@ -1,0 +1,45 @@
+"""Site file reading: defaults, and clear one-line errors for bad fields."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+
+from overlay.errors import SiteFileError
+from overlay.site import read_site
+
+from .conftest import write_bundle, write_site
+
+
+def test_defaults_and_glob(tmp_path: Path) -> None:
+    write_bundle(tmp_path / "scans" / "S-1")
+    write_bundle(tmp_path / "scans" / "S-2")
+    site = read_site(write_site(tmp_path, ["scans/S-*"]))
+    assert [e.bundle.name for e in site.scans] == ["S-1", "S-2"]
+    assert [c.name for c in site.classes] == ["watch", "suspect", "probable"]
+    assert site.reference == "percentile" and site.percentile == 10
+    assert site.map is None
+
+
+@pytest.mark.parametrize(
+    "extra, fragment",
+    [
+        ('\n[zones]\n[[zones.classes]]\nname = "a"\nthreshold_db = 9\n[[zones.classes]]\nname = "b"\nthreshold_db = 6\n',
+         "thresholds must rise"),
+        ('\n[energy]\nreference = "median"\n', "energy.reference: must be one of"),
+        ('\n[map]\ncrs = "EPSG:25832"\n', "map.origin: give either origin"),
+        ('\n[outputs]\nbasename = "../x"\n', "outputs.basename"),
+    ],
+)
+def test_bad_fields(tmp_path: Path, extra: str, fragment: str) -> None:
+    write_bundle(tmp_path / "S-1")
+    with pytest.raises(SiteFileError) as info:
+        read_site(write_site(tmp_path, ["S-1"], extra=extra))
+    assert fragment in str(info.value) and "site.toml" in str(info.value)
+    assert info.value.exit_code == 3
+
+
+def test_glob_matching_nothing(tmp_path: Path) -> None:
+    with pytest.raises(SiteFileError, match=r"scans\[0\].bundle: pattern 'nothing/\*' matches no folder"):
+        read_site(write_site(tmp_path, ["nothing/*"]))

@@ -1,0 +1,126 @@
+"""Spectra stage against scipy.signal (reference library), Parseval and window theory."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import scipy.signal
+
+from overlay.gate import Gate
+from overlay.spectra import given_spectra, hann, parabolic_peak, periodogram, records_spectra
+
+FS = 51200.0
+
+
+def test_periodogram_equals_scipy_periodogram() -> None:
+    # reference library: scipy.signal.periodogram, Hann window, density scaling, constant detrend
+    x = np.random.default_rng(3).normal(size=(5, 1000))
+    f_ref, p_ref = scipy.signal.periodogram(x, FS, window="hann", scaling="density")
+    f, p = periodogram(x, FS)
+    np.testing.assert_allclose(f, f_ref)
+    np.testing.assert_allclose(p, p_ref, rtol=1e-10, atol=1e-18)
+
+
+def test_odd_length_periodogram_equals_scipy() -> None:
+    x = np.random.default_rng(4).normal(size=(2, 777))
+    _, p_ref = scipy.signal.periodogram(x, FS, window="hann")
+    np.testing.assert_allclose(periodogram(x, FS)[1], p_ref, rtol=1e-10)
+
+
+def test_white_noise_level_matches_welch() -> None:
+    # scipy.signal.welch (Hann, 50 % overlap) as reference: one-sided density of white noise is 2σ²/fs
+    sigma = 0.5
+    x = np.random.default_rng(5).normal(0, sigma, 2**16)
+    _, p_welch = scipy.signal.welch(x, FS, nperseg=1024)
+    _, p = periodogram(x.reshape(64, 1024), FS)
+    assert np.mean(p[:, 1:-1]) == pytest.approx(np.mean(p_welch[1:-1]), rel=0.02)
+    assert np.mean(p[:, 1:-1]) == pytest.approx(2 * sigma**2 / FS, rel=0.02)
+
+
+def _gate(n: int) -> Gate:
+    return Gate(0, n, FS, "test")
+
+
+def test_parseval_sine_in_band() -> None:
+    # Parseval: a sine of amplitude A carries A²/2 mean square; A = 2 → 2.000 (1e-3) (CHECKS.md, Spectra)
+    n = 4096
+    t = np.arange(n) / FS
+    x = (2.0 * np.sin(2 * np.pi * 2000.0 * t)).astype(np.float32)[None, :]
+    sp = records_spectra(x, _gate(n), (400.0, 8000.0))
+    assert sp.energy[0] == pytest.approx(2.0, rel=1e-3)
+
+
+def test_parseval_white_noise_full_band() -> None:
+    # white noise σ = 0.5 integrates to σ² = 0.25 over 0..fs/2 (2 % with a fixed seed) (CHECKS.md)
+    x = np.random.default_rng(6).normal(0, 0.5, (64, 4096)).astype(np.float32)
+    sp = records_spectra(x, _gate(4096), (0.0, FS / 2))
+    assert np.mean(sp.energy) == pytest.approx(0.25, rel=0.02)
+
+
+def test_hann_equivalent_noise_bandwidth() -> None:
+    # window theory: ENBW = N·Σw²/(Σw)² = 1.500 bins for Hann (Harris, Proc. IEEE 66(1), 1978, Table 1)
+    w = hann(4096)
+    assert len(w) * np.sum(w**2) / np.sum(w) ** 2 == pytest.approx(1.5, abs=1e-3)
+
+
+def test_velocity_unit_scales_energy_by_square() -> None:
+    # 1 mm/s = 1e-3 m/s → energy by 1e-6 (hand-worked)
+    x = np.random.default_rng(7).normal(0, 1.0, (3, 2048)).astype(np.float32)
+    a = records_spectra(x, _gate(2048), (400.0, 8000.0), velocity_scale=1.0)
+    b = records_spectra(x, _gate(2048), (400.0, 8000.0), velocity_scale=1e-3)
+    np.testing.assert_allclose(b.energy, a.energy * 1e-6, rtol=1e-6)
+
+
+def test_peak_of_sine_between_bins() -> None:
+    # a sine of 2013.7 Hz lies between bins of 12.5 Hz spacing; the log-parabola finds it within 0.1 bin
+    n = 4096
+    t = np.arange(n) / FS
+    x = np.sin(2 * np.pi * 2013.7 * t).astype(np.float32)[None, :]
+    sp = records_spectra(x, _gate(n), (400.0, 8000.0))
+    assert abs(sp.peak_hz[0] - 2013.7) < 0.1 * FS / n
+
+
+def test_parabolic_peak_on_exact_parabola() -> None:
+    f = np.array([100.0, 110.0, 120.0, 130.0, 140.0])
+    logp = -((f - 123.4) ** 2) / 50.0
+    assert parabolic_peak(f, np.exp(logp)[None, :])[0] == pytest.approx(123.4, abs=1e-9)
+
+
+def test_shots_are_averaged_as_power() -> None:
+    # two shots of opposite sign cancel as waveforms but not as power
+    n = 2048
+    t = np.arange(n) / FS
+    s = np.sin(2 * np.pi * 1500.0 * t)
+    x = np.stack([s, -s])[None, :, :].astype(np.float32)
+    sp = records_spectra(x, _gate(n), (400.0, 8000.0))
+    assert sp.energy[0] == pytest.approx(0.5, rel=2e-3)
+
+
+def test_nan_anywhere_makes_point_invalid_others_unchanged() -> None:
+    x = np.random.default_rng(8).normal(0, 1.0, (4, 2048)).astype(np.float32)
+    ref = records_spectra(x, Gate(100, 1100, FS, "t"), (400.0, 8000.0))
+    x[2, 1500] = np.nan  # outside the gate, still a bad record
+    x[3, 200] = np.inf
+    sp = records_spectra(x, Gate(100, 1100, FS, "t"), (400.0, 8000.0))
+    assert sp.finite.tolist() == [True, True, False, False]
+    assert np.isnan(sp.energy[2:]).all()
+    np.testing.assert_array_equal(sp.energy[:2], ref.energy[:2])
+
+
+def test_chunked_equals_unchunked() -> None:
+    x = np.random.default_rng(9).normal(0, 1.0, (37, 1500)).astype(np.float32)
+    g = Gate(100, 1400, FS, "t")
+    whole = records_spectra(x, g, (400.0, 8000.0), chunk=1000)
+    parts = records_spectra(x, g, (400.0, 8000.0), chunk=5)
+    np.testing.assert_allclose(parts.energy, whole.energy, rtol=1e-6)
+    np.testing.assert_array_equal(parts.peak_hz, whole.peak_hz)
+
+
+def test_given_spectra_integrates_band_and_finds_peak() -> None:
+    # a flat PSD of 1e-6 (m/s)²/Hz over 400..8000 Hz integrates to 7.6e-3 (m/s)² (hand-worked)
+    f = np.linspace(0, 10000, 1001)
+    psd = np.full((2, len(f)), 1e-6)
+    psd[1, 300] = 1e-3  # a peak at 3000 Hz
+    sp = given_spectra(psd, f, (400.0, 8000.0))
+    assert sp.energy[0] == pytest.approx(7.6e-3, rel=1e-9)
+    assert sp.peak_hz[1] == pytest.approx(3000.0, abs=5.0)
