@@ -121,3 +121,52 @@ def test_console_script_and_module_entry() -> None:
         assert done.returncode == 0 and done.stdout.startswith("overlay "), done
     done = subprocess.run([script, "exporters"], capture_output=True, text=True, check=False)
     assert done.returncode == 0 and "quantities-csv" in done.stdout
+
+
+@pytest.mark.parametrize(
+    "damage, fragment",
+    [
+        (lambda f: np.save(f / "records.npy", np.zeros((48, 1024), dtype=np.int32)), "dtype must be float32 or float64"),
+        (lambda f: np.save(f / "records.npy", np.zeros((40, 1024), dtype=np.float32)), "points.csv has 48"),
+        (lambda f: np.save(f / "records.npy", np.zeros((48, 2, 3, 4), dtype=np.float32)), "shape must be"),
+        (lambda f: (f / "scan.toml").write_text((f / "scan.toml").read_text().replace('"surface"', '"laser"')), "coordinates.kind"),
+        (lambda f: (f / "points.csv").unlink(), "points.csv: file not found"),
+    ],
+)
+def test_bad_records_bundles_exit_3_and_write_nothing(tmp_path: Path, capsys: pytest.CaptureFixture, damage, fragment: str) -> None:
+    folder = write_bundle(tmp_path / "S-1")
+    damage(folder)
+    site = write_site(tmp_path, ["S-1"])
+    assert main(["run", str(site), "--out", str(tmp_path / "out")]) == 3
+    err = capsys.readouterr().err.strip()
+    assert fragment in err and len(err.splitlines()) == 1
+    assert _files(tmp_path / "out") == []
+
+
+def test_all_points_invalid_exit_3(tmp_path: Path, capsys: pytest.CaptureFixture) -> None:
+    folder = write_bundle(tmp_path / "S-1", records=np.full((48, 1024), np.nan, dtype=np.float32))
+    site = write_site(tmp_path, ["S-1"])
+    assert main(["run", str(site), "--out", str(tmp_path / "out")]) == 3
+    assert "no valid point" in capsys.readouterr().err
+    assert folder.exists() and _files(tmp_path / "out") == []
+
+
+def test_monuments_fit_places_the_drawing(tmp_path: Path) -> None:
+    # two monuments 10 m apart along drawing +x, mapped due north: bearing 0°, so drawing (0, 1) maps west
+    _bump_bundle(tmp_path / "S-1")
+    extra = (
+        '\n[map]\ncrs = "EPSG:25832"\n'
+        '[[map.monuments]]\nname = "M1"\ndrawing = [0.0, 0.0]\nmap = [512000.0, 5712000.0]\n'
+        '[[map.monuments]]\nname = "M2"\ndrawing = [10.0, 0.0]\nmap = [512000.0, 5712010.0]\n'
+    )
+    site = write_site(tmp_path, ["S-1"], extra=extra)
+    out = tmp_path / "out"
+    assert main(["run", str(site), "--out", str(out), "-q"]) == 0
+    import pyogrio
+
+    ext = pyogrio.read_dataframe(out / "overlay.gpkg", layer="scan_extents")
+    # drawing x 10.0..11.0, y 20.0..21.0 → map E 512000 − (20..21), N 5712000 + (10..11)
+    minx, miny, maxx, maxy = ext.total_bounds
+    assert (minx, maxx) == pytest.approx((511979.0, 511980.0), abs=1e-6)
+    assert (miny, maxy) == pytest.approx((5712010.0, 5712011.0), abs=1e-6)
+    assert "monuments" in (out / "overlay-report.txt").read_text()
