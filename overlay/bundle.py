@@ -60,6 +60,7 @@ class Scan:
     xy: np.ndarray
     valid: np.ndarray
     payload: str
+    unit_scale: float = 1.0  # bundle coordinate unit → m (surface scans)
     element: str | None = None
     surveyed: dt.datetime | None = None
     note: str = ""
@@ -152,6 +153,7 @@ def read_bundle(folder: str | Path) -> Scan:
         xy=table["xy"] * unit_scale,
         valid=table["valid"],
         payload="records" if records_path.exists() else "spectra" if spectra_path.exists() else "ver",
+        unit_scale=unit_scale,
         element=element,
         surveyed=surveyed,
         note=note,

@@ -199,6 +199,9 @@ def _write_scan(folder: Path, s: dict, sc: dict, defects: list[dict], t: np.ndar
         coeffs[:, k] = clamped_mode_shape(_ell_radius(drawing, d))
     waves = np.stack([d["response"] for d in inside]) if inside else np.zeros((0, len(t)))
     rec = h0 * (sweep[None, :] + coeffs @ waves)
+    # the beam sees the normal motion times cos θ; the head stands below the scanner's origin + offset
+    standoff = acq["head_distance_m"]
+    rec *= (standoff / np.sqrt(standoff**2 + np.sum(local**2, axis=1)))[:, None]
     rec += h0 * echo[None, :] * rng.uniform(0.8, 1.2, size=(n_pts, 1))
     rec += rng.normal(0.0, sigma, size=rec.shape)
     valid = np.ones(n_pts, dtype=int)

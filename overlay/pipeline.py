@@ -23,6 +23,7 @@ from .contour import level_polygons
 from .energy import Reference, reference_energy, ver_db
 from .errors import BundleError, BundleWarning, RegistrationError, SignalError
 from .frames import UNIT_TO_M, Fit, Similarity, check_fit, check_map_crs, fit_similarity, from_placement, to_crs
+from .beam import cos_incidence_from_angles, cos_incidence_from_head, normal_energy
 from .gate import Gate, make_gate, window_from_geometry
 from .grid import Grid, fill_isolated, grid_from_indices, infer_grid
 from .site import ScanEntry, Site
@@ -50,6 +51,7 @@ class ScanResult:
     n_points: int
     gate: Gate | None
     reference: Reference | None
+    incidence: str
     fit: Fit
     fit_passed: bool
     spacing_m: float
@@ -60,6 +62,7 @@ class ScanResult:
     ver_db: np.ndarray
     peak_hz: np.ndarray
     snr_db: np.ndarray
+    incidence_deg: np.ndarray
     valid: np.ndarray
     invalid_reason: np.ndarray
     targets: list[TargetResult]
@@ -94,6 +97,9 @@ class RunResult:
             "drawing_unit": s.drawing_unit,
             "reference": s.reference,
             "percentile": s.percentile,
+            "incidence_correction": s.incidence_correction,
+            "min_signal_level": s.min_signal_level,
+            "min_snr_db": s.min_snr_db,
             "classes": ";".join(f"{c.name}>={c.threshold_db:g}dB" for c in s.classes),
             "min_area_m2": s.min_area_m2,
             "tolerance": s.tolerance,
@@ -180,6 +186,30 @@ def grid_extent(grid: Grid) -> Polygon:
     return merged
 
 
+def incidence_cosines(scan: Scan, entry: ScanEntry) -> tuple[np.ndarray | None, str]:
+    """cos θ of the beam at each point where the scan geometry gives it, and how it was found."""
+    if scan.kind == "angles":
+        return cos_incidence_from_angles(scan.xy), "from mirror angles"
+    standoff = scan.geometry.head_distance_m
+    if entry.head_xy is not None and standoff is not None:
+        head = (entry.head_xy[0] * scan.unit_scale, entry.head_xy[1] * scan.unit_scale)
+        return cos_incidence_from_head(scan.xy, head, standoff), "from head position and standoff"
+    return None, "not available (no angles, no head_xy with head_distance_m)"
+
+
+def healthy_mask(scan: Scan, entry: ScanEntry, to_drawing: Similarity) -> np.ndarray | None:
+    """Points inside the scan's healthy region (drawing frame, or scanner frame in the bundle's unit)."""
+    if entry.healthy_region is None:
+        return None
+    if entry.healthy_region_frame == "drawing":
+        region = Polygon(entry.healthy_region)
+        xy = to_drawing.apply(scan.xy)
+    else:
+        region = Polygon([(x * scan.unit_scale, y * scan.unit_scale) for x, y in entry.healthy_region])
+        xy = scan.xy
+    return shapely.contains_xy(region, xy[:, 0], xy[:, 1])
+
+
 def process_scan(
     scan: Scan, site: Site, entry: ScanEntry, progress: Callable[[int], None] | None = None
 ) -> ScanResult:
@@ -187,9 +217,15 @@ def process_scan(
     src = str(scan.path)
     n = scan.n_points
     reason = np.where(scan.valid, "", "flagged").astype(object)
+    grid = scan_grid(scan)
+    spacing = grid.spacing()
+    fit, passed, targets = register_scan(scan, site, src)
+    to_drawing = fit.transform
     gate: Gate | None = None
     reference: Reference | None = None
     snr = np.full(n, np.nan)
+    cos_inc, how = incidence_cosines(scan, entry)
+    incidence_deg = np.degrees(np.arccos(np.clip(cos_inc, 0, 1))) if cos_inc is not None else np.full(n, np.nan)
     if scan.payload == "ver":
         assert scan.ver_db is not None
         energy = np.full(n, np.nan)
@@ -197,6 +233,7 @@ def process_scan(
         peak = scan.peak_hz if scan.peak_hz is not None else np.full(n, np.nan)
         valid = scan.valid & np.isfinite(ver)
         reason[(reason == "") & ~valid] = "no VER value"
+        incidence = "not applicable (ready VER)"
     else:
         assert scan.band_hz is not None
         if scan.payload == "records":
@@ -207,22 +244,25 @@ def process_scan(
             assert scan.spectra is not None and scan.frequencies is not None
             sp = given_spectra(scan.spectra, scan.frequencies, scan.band_hz, scan.velocity_scale)
         energy, peak, snr = sp.energy, sp.peak_hz, sp.snr_db
-        reason[(reason == "") & ~sp.finite] = "non-finite data"
-        valid = scan.valid & sp.finite
+        if cos_inc is not None and site.incidence_correction:
+            energy = normal_energy(energy, cos_inc)
+            incidence = f"applied ({how}; largest {np.nanmax(incidence_deg):.1f} deg)"
+        else:
+            incidence = "off" if cos_inc is not None else how
+        valid = scan.valid.copy()
+        for bad, why in _quality_checks(scan, sp.finite, snr, site):
+            reason[valid & bad] = why
+            valid &= ~bad
         if not valid.any():
-            raise SignalError("no valid point in the scan (all flagged or non-finite)", source=src)
-        reference = reference_energy(energy, valid, site.reference, site.percentile, source=src)
+            raise SignalError("no valid point in the scan (all flagged, non-finite or below the quality floors)", source=src)
+        region = healthy_mask(scan, entry, to_drawing) if site.reference == "region" else None
+        reference = reference_energy(energy, valid, site.reference, site.percentile, region, source=src)
         ver = ver_db(energy, reference.energy)
         bad = valid & ~np.isfinite(ver)
         reason[bad] = "zero energy"
         valid &= np.isfinite(ver)
     if not valid.any():
         raise SignalError("no valid point in the scan", source=src)
-
-    grid = scan_grid(scan)
-    spacing = grid.spacing()
-    fit, passed, targets = register_scan(scan, site, src)
-    to_drawing = fit.transform
     u = UNIT_TO_M[site.drawing_unit]
 
     values = fill_isolated(grid.values(ver, valid), grid.index >= 0)
@@ -271,6 +311,7 @@ def process_scan(
         n_points=n,
         gate=gate,
         reference=reference,
+        incidence=incidence,
         fit=fit,
         fit_passed=passed,
         spacing_m=spacing if scan.kind == "surface" else spacing * fit.transform.scale * u,
@@ -281,11 +322,22 @@ def process_scan(
         ver_db=ver,
         peak_hz=peak,
         snr_db=snr,
+        incidence_deg=incidence_deg,
         valid=valid,
         invalid_reason=reason,
         targets=targets,
         zones=zones,
     )
+
+
+def _quality_checks(scan: Scan, finite: np.ndarray, snr: np.ndarray, site: Site) -> list[tuple[np.ndarray, str]]:
+    """(mask of failing points, reason) per quality rule, in the order reasons are given."""
+    checks = [(~finite, "non-finite data")]
+    if scan.signal_level is not None and site.min_signal_level > 0:
+        checks.append((np.nan_to_num(scan.signal_level, nan=0.0) < site.min_signal_level, "low signal"))
+    if site.min_snr_db is not None:
+        checks.append((~(snr >= site.min_snr_db), "low SNR"))
+    return checks
 
 
 def map_placement(site: Site, site_xy: np.ndarray) -> tuple[Similarity | None, pyproj.CRS | None, Fit | None]:
@@ -314,7 +366,7 @@ def map_placement(site: Site, site_xy: np.ndarray) -> tuple[Similarity | None, p
 def run_site(
     site: Site,
     *,
-    on_scan: Callable[[str], None] | None = None,
+    on_scan: Callable[[str, int], None] | None = None,
     progress: Callable[[int], None] | None = None,
 ) -> RunResult:
     """Process every scan of a site; the first failing scan stops the run with its error."""
@@ -326,7 +378,7 @@ def run_site(
         for entry in site.scans:
             scan = read_bundle(entry.bundle)
             if on_scan is not None:
-                on_scan(scan.scan_id)
+                on_scan(scan.scan_id, scan.n_points)
             results.append(process_scan(scan, site, entry, progress))
         ids = [r.scan_id for r in results]
         dup = {i for i in ids if ids.count(i) > 1}

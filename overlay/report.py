@@ -41,6 +41,7 @@ def run_report(result: "RunResult") -> str:
             out.append(f"  gate {s.gate.describe()}")
         if s.reference is not None:
             out.append(f"  reference {s.reference.describe()}")
+        out.append(f"  incidence correction {s.incidence}")
         reasons = defaultdict(int)
         for r in s.invalid_reason:
             if r:

@@ -47,8 +47,13 @@ class MapFrame:
 
 @dataclass(frozen=True)
 class ScanEntry:
+    """One [[scans]] entry: the bundle and what the site file adds to it."""
+
     bundle: Path
     element: str | None = None
+    healthy_region: tuple[tuple[float, float], ...] | None = None
+    healthy_region_frame: str = "drawing"
+    head_xy: tuple[float, float] | None = None
 
 
 @dataclass
@@ -65,6 +70,9 @@ class Site:
     accept_misfit: bool = False
     reference: str = "percentile"
     percentile: float = DEFAULT_PERCENTILE
+    incidence_correction: bool = True
+    min_signal_level: float = 0.0
+    min_snr_db: float | None = None
     min_area_m2: float = 0.01
     basename: str = "overlay"
     formats: tuple[str, ...] = DEFAULT_FORMATS
@@ -96,6 +104,13 @@ def read_site(path: str | Path) -> Site:
     percentile = en.number("percentile", DEFAULT_PERCENTILE, minimum=0.0) or 0.0
     if percentile > 100:
         raise en.fail("percentile", f"must lie in 0..100, got {percentile:g}")
+    incidence = _bool(en, "incidence_correction", True)
+
+    qt = _table(doc, "quality")
+    min_level = qt.number("min_signal_level", 0.0, minimum=0.0) or 0.0
+    if min_level > 1:
+        raise qt.fail("min_signal_level", f"must lie in 0..1, got {min_level:g}")
+    min_snr = qt.number("min_snr_db")
 
     zt = _table(doc, "zones")
     min_area = zt.number("min_area_m2", 0.01, minimum=0.0) or 0.0
@@ -120,7 +135,11 @@ def read_site(path: str | Path) -> Site:
     if not isinstance(formats, list) or not all(isinstance(f, str) for f in formats) or not formats:
         raise out.fail("formats", f"must be a non-empty list of exporter names, got {formats!r}")
 
-    for t in (doc, s, reg, en, zt, out):
+    if reference == "region":
+        missing = [str(e.bundle) for e in scans if e.healthy_region is None]
+        if missing:
+            raise en.fail("reference", f"'region' needs healthy_region on every scan; missing for {', '.join(missing)}")
+    for t in (doc, s, reg, en, qt, zt, out):
         _warn_unknown(t)
     return Site(
         path=path,
@@ -135,6 +154,9 @@ def read_site(path: str | Path) -> Site:
         accept_misfit=accept,
         reference=reference,
         percentile=percentile,
+        incidence_correction=incidence,
+        min_signal_level=min_level,
+        min_snr_db=min_snr,
         min_area_m2=min_area,
         basename=basename,
         formats=tuple(formats),
@@ -188,17 +210,35 @@ def _scans(doc: Fields, path: Path) -> list[ScanEntry]:
     for i, item in enumerate(raw):
         t = Fields(item, f"scans[{i}]", path, SiteFileError)
         pattern = t.string("bundle", required=True) or ""
-        element = t.string("element")
+        extra = {
+            "element": t.string("element"),
+            "healthy_region": _region(t),
+            "healthy_region_frame": t.choice("healthy_region_frame", ("drawing", "scanner"), default="drawing"),
+            "head_xy": t.pair("head_xy"),
+        }
         full = path.parent / pattern
         if glob.has_magic(pattern):
             found = sorted(Path(p) for p in glob.glob(str(full)) if Path(p).is_dir())
             if not found:
                 raise t.fail("bundle", f"pattern {pattern!r} matches no folder")
-            out.extend(ScanEntry(p, element) for p in found)
+            out.extend(ScanEntry(p, **extra) for p in found)
         else:
-            out.append(ScanEntry(full, element))
+            out.append(ScanEntry(full, **extra))
         _warn_unknown(t)
     return out
+
+
+def _region(t: Fields) -> tuple[tuple[float, float], ...] | None:
+    raw = t.raw("healthy_region")
+    if raw is None:
+        return None
+    ok = isinstance(raw, list) and len(raw) >= 3 and all(
+        isinstance(p, list) and len(p) == 2 and all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in p)
+        for p in raw
+    )
+    if not ok:
+        raise t.fail("healthy_region", "must be a polygon: a list of at least 3 [x, y] pairs")
+    return tuple((float(x), float(y)) for x, y in raw)
 
 
 def _map(doc: Fields) -> MapFrame | None:

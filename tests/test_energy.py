@@ -50,3 +50,17 @@ def test_no_valid_point_is_an_error() -> None:
 def test_unknown_method_names_choices() -> None:
     with pytest.raises(SignalError, match="choose from percentile, minimum"):
         reference_energy(np.ones(5), np.ones(5, dtype=bool), "mean")
+
+
+def test_median_and_region_references() -> None:
+    e, valid = _map_with_dropout()
+    e[17] = 1e-6
+    assert reference_energy(e, valid, "median").energy == pytest.approx(np.median(e), rel=1e-12)
+    region = np.zeros(200, dtype=bool)
+    region[100:120] = True
+    ref = reference_energy(e, valid, "region", region=region)
+    assert ref.energy == pytest.approx(np.median(e[100:120])) and ref.n_points == 20
+    with pytest.raises(SignalError, match="healthy region holds 2 valid point"):
+        reference_energy(e, valid, "region", region=np.arange(200) < 2)
+    with pytest.raises(SignalError, match="needs a healthy_region"):
+        reference_energy(e, valid, "region")

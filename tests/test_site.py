@@ -27,7 +27,7 @@ def test_defaults_and_glob(tmp_path: Path) -> None:
     [
         ('\n[zones]\n[[zones.classes]]\nname = "a"\nthreshold_db = 9\n[[zones.classes]]\nname = "b"\nthreshold_db = 6\n',
          "thresholds must rise"),
-        ('\n[energy]\nreference = "median"\n', "energy.reference: must be one of"),
+        ('\n[energy]\nreference = "mean"\n', "energy.reference: must be one of"),
         ('\n[map]\ncrs = "EPSG:25832"\n', "map.origin: give either origin"),
         ('\n[outputs]\nbasename = "../x"\n', "outputs.basename"),
     ],

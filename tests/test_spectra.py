@@ -124,3 +124,43 @@ def test_given_spectra_integrates_band_and_finds_peak() -> None:
     sp = given_spectra(psd, f, (400.0, 8000.0))
     assert sp.energy[0] == pytest.approx(7.6e-3, rel=1e-9)
     assert sp.peak_hz[1] == pytest.approx(3000.0, abs=5.0)
+
+
+@pytest.mark.parametrize("zeta", [0.01, 0.02, 0.05])
+def test_peak_of_damped_resonance_within_0p1_percent(zeta: float) -> None:
+    # a damped resonance x = e^(−ζω₀t)·sin(ω_d t) over a 2048-sample gate (40 ms at 51.2 kHz, 25 Hz bins):
+    # the peak lies at the damped frequency f₀·sqrt(1 − ζ²); resonances at least 5 bins from the band edges
+    n = 2048
+    t = np.arange(n) / FS
+    worst = 0.0
+    for f0 in np.linspace(400.0 + 5 * FS / n, 8000.0 - 5 * FS / n, 25):
+        fd = f0 * np.sqrt(1 - zeta**2)
+        x = (np.exp(-zeta * 2 * np.pi * f0 * t) * np.sin(2 * np.pi * fd * t)).astype(np.float32)[None, :]
+        sp = records_spectra(x, _gate(n), (400.0, 8000.0))
+        worst = max(worst, abs(sp.peak_hz[0] - fd) / fd)
+    assert worst < 1e-3
+
+
+def test_threads_do_not_change_results() -> None:
+    x = np.random.default_rng(10).normal(0, 1.0, (1500, 1024)).astype(np.float32)
+    g = Gate(0, 1024, FS, "t")
+    one = records_spectra(x, g, (400.0, 8000.0), chunk=100, threads=1)
+    two = records_spectra(x, g, (400.0, 8000.0), chunk=100, threads=2)
+    for a, b in ((one.energy, two.energy), (one.peak_hz, two.peak_hz), (one.snr_db, two.snr_db)):
+        np.testing.assert_array_equal(a, b)
+
+
+def test_memory_mapped_records_give_the_same_result(tmp_path) -> None:
+    x = np.random.default_rng(11).normal(0, 1.0, (700, 1024)).astype(np.float32)
+    np.save(tmp_path / "r.npy", x)
+    mm = np.load(tmp_path / "r.npy", mmap_mode="r")
+    g = Gate(100, 900, FS, "t")
+    np.testing.assert_array_equal(records_spectra(mm, g, (400.0, 8000.0), chunk=64).energy,
+                                  records_spectra(x, g, (400.0, 8000.0), chunk=64).energy)
+
+
+def test_kept_band_psd_integrates_to_the_energy() -> None:
+    x = np.random.default_rng(12).normal(0, 1.0, (5, 2048)).astype(np.float32)
+    sp = records_spectra(x, _gate(2048), (400.0, 8000.0), keep_psd=True)
+    assert sp.band_psd.shape == (5, len(sp.band_freqs))
+    np.testing.assert_allclose(sp.band_psd.sum(axis=1) * FS / 2048, sp.energy, rtol=1e-5)

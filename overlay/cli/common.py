@@ -5,8 +5,6 @@ from __future__ import annotations
 import argparse
 import sys
 from pathlib import Path
-from typing import Callable
-
 from tqdm import tqdm
 
 from ..outputs import write_outputs
@@ -25,13 +23,21 @@ def add_output_options(p: argparse.ArgumentParser, default_out: str) -> None:
 
 def run_and_write(site: Site, out: Path, *, overwrite: bool, quiet: bool) -> tuple[RunResult, dict[str, Path]]:
     """Process the site with a progress bar (on a terminal only), write outputs, print the report."""
-    total = len(site.scans)
-    bar = tqdm(total=total, desc="scans", unit="scan", disable=None if not quiet else True, file=sys.stderr)
-    on_scan: Callable[[str], None] = lambda sid: (bar.set_postfix_str(sid), bar.update(1))  # noqa: E731
+    hide = True if quiet else None  # None: tqdm shows bars on a terminal only
+    scans = tqdm(total=len(site.scans), desc="scans ", unit="scan", disable=hide, file=sys.stderr, position=0)
+    points = tqdm(total=0, desc="points", unit="pt", disable=hide, file=sys.stderr, position=1, unit_scale=True)
+
+    def on_scan(scan_id: str, n_points: int) -> None:
+        scans.set_postfix_str(scan_id)
+        scans.update(1)
+        points.total = (points.total or 0) + n_points
+        points.refresh()
+
     try:
-        result = run_site(site, on_scan=on_scan)
+        result = run_site(site, on_scan=on_scan, progress=points.update)
     finally:
-        bar.close()
+        points.close()
+        scans.close()
     paths = write_outputs(result, out, overwrite=overwrite)
     if not quiet:
         print(run_report(result))

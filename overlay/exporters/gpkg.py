@@ -73,13 +73,14 @@ def _points(result: "RunResult", move: Any, crs: Any) -> gpd.GeoDataFrame:
             "peak_hz": s.peak_hz,
             "energy": s.energy,
             "snr_db": s.snr_db,
+            "incidence_deg": s.incidence_deg,
             "valid": s.valid.astype(np.int16),
             "invalid_reason": s.invalid_reason.astype(str),
             "x": xy[:, 0],
             "y": xy[:, 1],
         }))
     df = pd.concat(frames, ignore_index=True)
-    for col in ("ver_db", "peak_hz", "energy", "snr_db"):
+    for col in ("ver_db", "peak_hz", "energy", "snr_db", "incidence_deg"):
         df[col] = df[col].where(np.isfinite(df[col]), np.nan)
     geom = gpd.points_from_xy(df.pop("x"), df.pop("y"), crs=crs)
     return gpd.GeoDataFrame(df, geometry=geom, crs=crs)
@@ -118,6 +119,8 @@ def _runs(result: "RunResult") -> pd.DataFrame:
             "gate": s.gate.describe() if s.gate else "",
             "reference_method": s.reference.method if s.reference else "given ver_db",
             "reference_energy": s.reference.energy if s.reference else np.nan,
+            "reference_detail": s.reference.describe() if s.reference else "",
+            "incidence": s.incidence,
             "fit_model": s.fit.model,
             "fit_rms": s.fit.rms,
             "fit_passed": int(s.fit_passed),
