@@ -96,6 +96,8 @@ def generate(dest: Path, scenario_dir: Path | None = None) -> Path:
         info = _write_scan(scans_dir / s["id"], s, sc, defects, t, sweep, echo, h0, sigma, rng)
         truth["scans"].append(info)
 
+    write_asbuilt_dxf(dest / "as-built.dxf", sc["structure"])
+    write_assets(dest / "assets.gpkg", sc["structure"])
     levels = [(c.name, c.threshold_db) for c in read_site(site_path).classes]
     for d in defects:
         scan_id = next((s["id"] for s in truth["scans"] if d["id"] in s["defects"]), None)
@@ -132,8 +134,6 @@ def generate(dest: Path, scenario_dir: Path | None = None) -> Path:
             "outline": ellipse(d["center"], d["semi_axes"], d["rotation_deg"]).tolist(),
         })
     (dest / "truth.json").write_text(json.dumps(truth, indent=1))
-    write_asbuilt_dxf(dest / "as-built.dxf", sc["structure"])
-    write_assets(dest / "assets.gpkg", sc["structure"])
     return site_path
 
 

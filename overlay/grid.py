@@ -5,6 +5,10 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+import scipy.interpolate
+import scipy.spatial
+import shapely
+from shapely.geometry import Polygon
 
 from .errors import BundleError
 
@@ -31,6 +35,21 @@ class Grid:
         mask |= ~np.isfinite(out)
         out[~np.isfinite(out)] = 0.0
         return np.ma.MaskedArray(out, mask=mask)
+
+    def contour_values(self, per_point: np.ndarray, usable: np.ndarray) -> np.ma.MaskedArray:
+        """Values to contour: isolated dropouts filled from their neighbours (see fill_isolated)."""
+        return fill_isolated(self.values(per_point, usable), self.index >= 0)
+
+    def extent(self) -> Polygon:
+        """The scanned area: union of the grid cells whose four corners all carry a point."""
+        has = self.index >= 0
+        cell = has[:-1, :-1] & has[1:, :-1] & has[1:, 1:] & has[:-1, 1:]
+        r, c = np.nonzero(cell)
+        if r.size == 0:
+            return Polygon()
+        corners = [(r, c), (r + 1, c), (r + 1, c + 1), (r, c + 1), (r, c)]
+        rings = np.stack([np.stack([self.x[i, j], self.y[i, j]], axis=-1) for i, j in corners], axis=1)
+        return _largest(shapely.union_all(shapely.polygons(rings)))
 
     def spacing(self) -> float:
         """Median distance between neighbouring nodes, in the grid's coordinate unit."""
@@ -102,3 +121,68 @@ def fill_isolated(values: np.ma.MaskedArray, fillable: np.ndarray) -> np.ma.Mask
     out = values.copy()
     out[take] = mean[take]
     return out
+
+
+def _largest(geom: object) -> Polygon:
+    geom = shapely.simplify(geom, 0)
+    if geom.geom_type == "MultiPolygon":
+        geom = max(geom.geoms, key=lambda g: g.area)
+    return geom if geom.geom_type == "Polygon" else Polygon()
+
+
+class ScatterGrid:
+    """Scattered points resampled onto a regular grid at their own spacing.
+
+    Values are interpolated linearly over the Delaunay triangles of the usable
+    points; nodes outside the scanned area (outside every triangle whose edges
+    are at most ``max_edge`` spacings long) are masked.  Same interface as Grid.
+    """
+
+    def __init__(self, xy: np.ndarray, max_edge: float = 2.5):
+        if len(xy) < 3:
+            raise BundleError("at least 3 points are needed to contour scattered points")
+        tree = scipy.spatial.cKDTree(xy)
+        d, _ = tree.query(xy, k=2)
+        self.step = float(np.median(d[:, 1]))
+        if not self.step > 0:
+            raise BundleError("scattered points coincide; cannot tell their spacing")
+        self.xy = xy
+        self.max_edge = max_edge
+        lo, hi = xy.min(axis=0), xy.max(axis=0)
+        gx = np.arange(lo[0], hi[0] + self.step / 2, self.step / 2)
+        gy = np.arange(lo[1], hi[1] + self.step / 2, self.step / 2)
+        self.x, self.y = np.meshgrid(gx, gy)
+        self.index = np.full(self.x.shape, -1, dtype=np.int64)
+        self._area = self._scanned_area(xy)
+        self._inside = shapely.contains_xy(self._area, self.x, self.y) | shapely.intersects_xy(self._area.boundary, self.x, self.y)
+
+    @property
+    def shape(self) -> tuple[int, int]:
+        return self.x.shape  # type: ignore[return-value]
+
+    def _scanned_area(self, xy: np.ndarray) -> Polygon:
+        tri = scipy.spatial.Delaunay(xy)
+        pts = xy[tri.simplices]
+        edges = np.stack([np.hypot(*(pts[:, i] - pts[:, (i + 1) % 3]).T) for i in range(3)], axis=1)
+        keep = edges.max(axis=1) <= self.max_edge * self.step
+        rings = np.concatenate([pts[keep], pts[keep][:, :1]], axis=1)
+        return _largest(shapely.union_all(shapely.polygons(rings)))
+
+    def values(self, per_point: np.ndarray, usable: np.ndarray) -> np.ma.MaskedArray:
+        ok = usable & np.isfinite(per_point)
+        if ok.sum() < 3:
+            raise BundleError("fewer than 3 usable scattered points to interpolate")
+        interp = scipy.interpolate.LinearNDInterpolator(self.xy[ok], per_point[ok])
+        z = interp(self.x, self.y)
+        mask = ~self._inside | ~np.isfinite(z)
+        return np.ma.MaskedArray(np.where(mask, 0.0, z), mask=mask)
+
+    def contour_values(self, per_point: np.ndarray, usable: np.ndarray) -> np.ma.MaskedArray:
+        return self.values(per_point, usable)
+
+    def extent(self) -> Polygon:
+        return self._area
+
+    def spacing(self) -> float:
+        """The points' own spacing (median nearest-neighbour distance), not the finer resampling step."""
+        return self.step

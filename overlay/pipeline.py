@@ -20,15 +20,26 @@ from . import __version__
 from .bundle import Scan, read_bundle
 from .cautions import CAUTIONS
 from .contour import level_polygons
+from .elements import element_areas
 from .energy import Reference, reference_energy, ver_db
 from .errors import BundleError, BundleWarning, RegistrationError, SignalError
 from .frames import UNIT_TO_M, Fit, Similarity, check_fit, check_map_crs, fit_similarity, from_placement, to_crs
 from .beam import cos_incidence_from_angles, cos_incidence_from_head, normal_energy
 from .gate import Gate, make_gate, window_from_geometry
-from .grid import Grid, fill_isolated, grid_from_indices, infer_grid
+from .grid import Grid, ScatterGrid, grid_from_indices, infer_grid
 from .site import ScanEntry, Site
-from .spectra import given_spectra, records_spectra
-from .zones import Zone, confidence_factors, order_key, point_stats
+from .spectra import band_psd_rows, given_psd_rows, given_spectra, parabolic_peak, records_spectra
+from .zones import (
+    Zone,
+    confidence_factors,
+    defect_outline,
+    depth_range,
+    order_key,
+    point_stats,
+    repair_footprint,
+)
+
+SIMPLIFY = 0.05  # contours are simplified within this fraction of the grid spacing
 
 
 @dataclass
@@ -82,6 +93,7 @@ class RunResult:
     tool_version: str = __version__
     cautions: tuple[str, ...] = CAUTIONS
     warnings: list[str] = field(default_factory=list)
+    element_areas: dict[str, float] = field(default_factory=dict)
 
     @property
     def zones(self) -> list[Zone]:
@@ -102,6 +114,8 @@ class RunResult:
             "min_snr_db": s.min_snr_db,
             "classes": ";".join(f"{c.name}>={c.threshold_db:g}dB" for c in s.classes),
             "min_area_m2": s.min_area_m2,
+            "concrete": f"E {s.concrete.modulus_pa / 1e9:.2f} GPa, rho {s.concrete.density:g}, nu {s.concrete.poisson:g}",
+            "repair": f"margin {s.margin_m:g} m, {s.footprint} footprint, basis {s.basis}",
             "tolerance": s.tolerance,
             "accept_misfit": s.accept_misfit,
             "crs": self.crs.to_string() if self.crs else "",
@@ -125,15 +139,11 @@ def choose_gate(scan: Scan) -> Gate:
     return make_gate(window, scan.sample_rate_hz, int(scan.records.shape[-1]), scan.band_hz[0], how, source=src)
 
 
-def scan_grid(scan: Scan) -> Grid:
+def scan_grid(scan: Scan) -> Grid | ScatterGrid:
+    """The scan's grid from row/col, else a regular grid inferred from the coordinates, else a resampled one."""
     if scan.row is not None and scan.col is not None:
         return grid_from_indices(scan.xy, scan.row, scan.col)
-    grid = infer_grid(scan.xy)
-    if grid is None:
-        raise BundleError(
-            "points form no regular grid and carry no row/col columns; add row and col", source=scan.path / "points.csv"
-        )
-    return grid
+    return infer_grid(scan.xy) or ScatterGrid(scan.xy)
 
 
 def register_scan(scan: Scan, site: Site, entry_src: str) -> tuple[Fit, bool, list[TargetResult]]:
@@ -168,22 +178,6 @@ def register_scan(scan: Scan, site: Site, entry_src: str) -> tuple[Fit, bool, li
         TargetResult(n, tuple(s), tuple(d), tuple(r)) for n, s, d, r in zip(names, src, dst, fit.residuals.tolist())
     ]
     return fit, passed, targets
-
-
-def grid_extent(grid: Grid) -> Polygon:
-    """The scanned area: union of the grid cells whose four corners all carry a point."""
-    has = grid.index >= 0
-    cell = has[:-1, :-1] & has[1:, :-1] & has[1:, 1:] & has[:-1, 1:]
-    r, c = np.nonzero(cell)
-    if r.size == 0:
-        return Polygon()
-    corners = [(r, c), (r + 1, c), (r + 1, c + 1), (r, c + 1), (r, c)]
-    rings = np.stack([np.stack([grid.x[i, j], grid.y[i, j]], axis=-1) for i, j in corners], axis=1)
-    merged = shapely.union_all(shapely.polygons(rings))
-    merged = shapely.simplify(merged, 0)
-    if merged.geom_type == "MultiPolygon":
-        merged = max(merged.geoms, key=lambda g: g.area)
-    return merged
 
 
 def incidence_cosines(scan: Scan, entry: ScanEntry) -> tuple[np.ndarray | None, str]:
@@ -265,43 +259,29 @@ def process_scan(
         raise SignalError("no valid point in the scan", source=src)
     u = UNIT_TO_M[site.drawing_unit]
 
-    values = fill_isolated(grid.values(ver, valid), grid.index >= 0)
     element = entry.element or scan.element or ""
     surveyed = scan.surveyed.astimezone(dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ") if scan.surveyed else ""
+    point_xy = to_drawing.apply(scan.xy)
+    spacing_d = spacing * to_drawing.scale  # grid spacing in drawing units
+    extent = to_drawing.apply_geometry(grid.extent())
+    values = grid.contour_values(ver, valid)
+    zone_psd = _zone_psd_source(scan, gate)
     zones: list[Zone] = []
-    for zc in site.classes:
-        candidates = []
-        for poly in level_polygons(grid, values, zc.threshold_db):
-            outline = to_drawing.apply_geometry(poly)
-            area_m2 = outline.area * u * u
-            if area_m2 < site.min_area_m2:
-                continue
-            candidates.append((order_key(outline), poly, outline, area_m2))
-        candidates.sort(key=lambda c: c[0])
-        for k, (_, poly, outline, area_m2) in enumerate(candidates, start=1):
-            st = point_stats(poly, scan.xy, ver, peak, valid, spacing)
-            support, contrast, quality = confidence_factors(st["n_points"], st["ver_max_db"], zc.threshold_db, st["valid_share"])
-            zones.append(
-                Zone(
-                    zone_id=f"{scan.scan_id}.{zc.name}.{k:02d}",
-                    scan_id=scan.scan_id,
-                    element=element,
-                    class_name=zc.name,
-                    threshold_db=zc.threshold_db,
-                    outline=outline,
-                    area_m2=area_m2,
-                    perimeter_m=outline.length * u,
-                    n_points=int(st["n_points"]),
-                    ver_max_db=st["ver_max_db"],
-                    ver_mean_db=st["ver_mean_db"],
-                    peak_hz=st["peak_hz"],
-                    confidence=round(support * contrast * quality, 4),
-                    conf_support=round(support, 4),
-                    conf_contrast=round(contrast, 4),
-                    conf_quality=round(quality, 4),
-                    surveyed=surveyed,
-                )
-            )
+    parents: list[Zone] = []
+    lower = None
+    for ci, zc in enumerate(site.classes):
+        contours = _class_contours(grid, values, zc.threshold_db, to_drawing, spacing_d, lower, site.min_area_m2 / (u * u))
+        built = []
+        for k, contour in enumerate(contours, start=1):
+            zone = _build_zone(f"{scan.scan_id}.{zc.name}.{k:02d}", scan.scan_id, element, zc.name, zc.threshold_db,
+                               contour, surveyed, point_xy, ver, peak, snr, valid, spacing_d, extent, u, zone_psd)
+            parent = next((p for p in parents if p.contour.buffer(1e-9).contains(contour.representative_point())), None)
+            _attach_repair(zone, parent, site, extent, u)
+            built.append(zone)
+        if ci == 0:
+            parents = built
+        zones.extend(built)
+        lower = shapely.union_all([z.contour for z in built]) if built else Polygon()
     return ScanResult(
         scan_id=scan.scan_id,
         element=element,
@@ -314,10 +294,10 @@ def process_scan(
         incidence=incidence,
         fit=fit,
         fit_passed=passed,
-        spacing_m=spacing if scan.kind == "surface" else spacing * fit.transform.scale * u,
-        extent=to_drawing.apply_geometry(grid_extent(grid)),
+        spacing_m=spacing_d * u,
+        extent=extent,
         point_ids=scan.point_ids,
-        point_xy=to_drawing.apply(scan.xy),
+        point_xy=point_xy,
         energy=energy,
         ver_db=ver,
         peak_hz=peak,
@@ -328,6 +308,79 @@ def process_scan(
         targets=targets,
         zones=zones,
     )
+
+
+def _class_contours(grid: Grid | ScatterGrid, values: np.ma.MaskedArray, level: float, to_drawing: Similarity,
+                    spacing_d: float, lower: object, min_area: float) -> list[Polygon]:
+    """Contours of one class in the drawing frame: simplified within 5 % of a spacing, clipped into
+    the lower class (so classes nest exactly), small ones dropped, ordered by position."""
+    out = []
+    for poly in level_polygons(grid, values, level):
+        c = to_drawing.apply_geometry(poly).simplify(SIMPLIFY * spacing_d, preserve_topology=True)
+        if lower is not None:
+            c = c.intersection(lower)
+        for part in shapely.get_parts(shapely.make_valid(c)):
+            if part.geom_type == "Polygon" and part.area >= min_area:
+                out.append(part)
+    return sorted(out, key=order_key)
+
+
+def _zone_psd_source(scan: Scan, gate: Gate | None) -> Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]] | None:
+    """A function giving (band freqs, PSD rows) for chosen points, or None for ready-VER scans."""
+    if scan.payload == "records" and gate is not None and scan.band_hz is not None:
+        return lambda rows: band_psd_rows(scan.records, gate, scan.band_hz, scan.velocity_scale, rows)
+    if scan.payload == "spectra" and scan.band_hz is not None:
+        return lambda rows: given_psd_rows(scan.spectra, scan.frequencies, scan.band_hz, scan.velocity_scale, rows)
+    return None
+
+
+def _build_zone(zone_id: str, scan_id: str, element: str, cls: str, threshold: float, contour: Polygon, surveyed: str,
+                xy: np.ndarray, ver: np.ndarray, peak: np.ndarray, snr: np.ndarray, valid: np.ndarray,
+                spacing_d: float, extent: Polygon, u: float,
+                zone_psd: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]] | None) -> Zone:
+    st = point_stats(contour, xy, ver, peak, snr, valid, spacing_d)
+    peak_hz = st["peak_hz"]
+    spectrum = None
+    rows = np.nonzero(st["inside"])[0]
+    if zone_psd is not None and rows.size:
+        freqs, psd = zone_psd(rows)
+        spectrum = np.nanmean(psd, axis=0)
+        if np.isfinite(spectrum).all():
+            peak_hz = float(parabolic_peak(freqs, spectrum[None, :])[0])
+    area = contour.area * u * u
+    low = contour.buffer(-spacing_d / 2).area * u * u
+    high = contour.buffer(spacing_d / 2).intersection(extent).area * u * u
+    factors = confidence_factors(st["n_points"], st["ver_max_db"], threshold, st["peak_spread"], st["valid_share"], st["snr_db"])
+    return Zone(
+        zone_id=zone_id, scan_id=scan_id, element=element, class_name=cls, threshold_db=threshold, contour=contour,
+        area_m2=area, area_low_m2=low, area_high_m2=max(high, area), perimeter_m=contour.length * u,
+        n_points=int(st["n_points"]), ver_max_db=st["ver_max_db"], ver_mean_db=st["ver_mean_db"], peak_hz=peak_hz,
+        peak_spread=st["peak_spread"], confidence=round(float(np.prod(factors)), 4),
+        conf_support=round(factors[0], 4), conf_contrast=round(factors[1], 4), conf_coherence=round(factors[2], 4),
+        conf_quality=round(factors[3], 4), surveyed=surveyed, spectrum=spectrum,
+    )
+
+
+def _attach_repair(zone: Zone, parent: Zone | None, site: Site, extent: Polygon, u: float) -> None:
+    """Defect outline, depth, repair footprint and volume: a zone of the lowest class estimates its
+    defect; a nested zone shares the defect of the lowest-class zone around it."""
+    if parent is None:
+        outline, _ = defect_outline(zone.contour, zone.ver_max_db, zone.threshold_db)
+        outline = outline.intersection(extent) if not extent.is_empty else outline
+        zone.defect, zone.defect_id = outline, zone.zone_id
+        zone.outline_area_m2 = outline.area * u * u
+        k = zone.outline_area_m2 / zone.area_m2
+        zone.depth_low_m, zone.depth_high_m = depth_range(zone.peak_hz, zone.area_low_m2 * k, zone.area_high_m2 * k, site.concrete)
+    else:
+        zone.defect, zone.defect_id, zone.outline_area_m2 = parent.defect, parent.defect_id, parent.outline_area_m2
+        zone.depth_low_m, zone.depth_high_m = parent.depth_low_m, parent.depth_high_m
+    basis = zone.defect if site.basis == "outline" else zone.contour
+    rect, length, width = repair_footprint(basis, site.margin_m / u, site.footprint)
+    zone.footprint = rect
+    zone.footprint_area_m2 = rect.area * u * u
+    zone.footprint_length_m, zone.footprint_width_m = length * u, width * u
+    zone.volume_low_m3 = zone.footprint_area_m2 * zone.depth_low_m
+    zone.volume_high_m3 = zone.footprint_area_m2 * zone.depth_high_m
 
 
 def _quality_checks(scan: Scan, finite: np.ndarray, snr: np.ndarray, site: Site) -> list[tuple[np.ndarray, str]]:
@@ -386,7 +439,8 @@ def run_site(
             raise BundleError(f"scan id(s) {', '.join(sorted(dup))} used by more than one bundle", source=site.path)
         corners = np.concatenate([np.asarray(r.extent.exterior.coords) for r in results if not r.extent.is_empty] or [np.zeros((0, 2))])
         to_map, crs, map_fit = map_placement(site, corners)
+        areas = element_areas(site.elements, crs, to_map, UNIT_TO_M[site.drawing_unit]) if site.elements else {}
     for w in seen:
         caught.append(str(w.message))
         warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
-    return RunResult(site, results, to_map, crs, map_fit, started, warnings=caught)
+    return RunResult(site, results, to_map, crs, map_fit, started, warnings=caught, element_areas=areas)

@@ -6,6 +6,7 @@ from collections import defaultdict
 from typing import TYPE_CHECKING
 
 from .cautions import cautions_text
+from .exporters.quantities_csv import quantity_rows
 
 if TYPE_CHECKING:
     from .pipeline import RunResult
@@ -50,22 +51,28 @@ def run_report(result: "RunResult") -> str:
             out.append("  invalid points: " + ", ".join(f"{k} {v}" for k, v in sorted(reasons.items())))
         out.append(f"  scanner -> drawing ({'passed' if s.fit_passed else 'MISFIT ACCEPTED BY OVERRIDE'}):")
         out += ["    " + line for line in s.fit.report(unit)]
-    out += ["", "zones:"]
+    out += ["", "zones (area: class contour; outline: estimated defect outline):"]
     if not result.zones:
         out.append("  none above the lowest class level")
-    out.append(f"  {'zone':<24} {'element':<14} {'class':<10} {'area m2':>8} {'VERmax dB':>9} {'peak Hz':>8} {'conf':>5}")
+    out.append(f"  {'zone':<20} {'element':<12} {'class':<9} {'area m2':>8} {'outline':>8} {'VERmax':>6} "
+               f"{'peak Hz':>7} {'depth mm':>11} {'conf':>5}")
     for z in result.zones:
+        depth = f"{z.depth_low_m * 1e3:.0f}-{z.depth_high_m * 1e3:.0f}" if z.depth_low_m == z.depth_low_m else "-"
         out.append(
-            f"  {z.zone_id:<24} {z.element:<14} {z.class_name:<10} {z.area_m2:8.3f} {z.ver_max_db:9.1f} "
-            f"{z.peak_hz:8.0f} {z.confidence:5.2f}"
+            f"  {z.zone_id:<20} {z.element:<12} {z.class_name:<9} {z.area_m2:8.3f} {z.outline_area_m2:8.3f} "
+            f"{z.ver_max_db:6.1f} {z.peak_hz:7.0f} {depth:>11} {z.confidence:5.2f}"
         )
-    totals: dict[tuple[str, str], float] = defaultdict(float)
-    for z in result.zones:
-        totals[(z.element, z.class_name)] += z.area_m2
-    if totals:
-        out += ["", "affected area per element and class (m2):"]
-        for (element, cls), area in sorted(totals.items()):
-            out.append(f"  {element:<14} {cls:<10} {area:8.3f}")
+    rows = [r for r in quantity_rows(result) if r["row_kind"] == "element_total"]
+    if rows:
+        out += ["", f"repair quantities per element and class (basis: {site.basis}, margin {site.margin_m:g} m, "
+                f"{site.footprint} footprints; each defect once per class; do not add classes):"]
+        out.append(f"  {'element':<12} {'class':<9} {'defects':>7} {'affected m2':>11} {'share %':>8} "
+                   f"{'footprint m2':>12} {'volume m3':>15}")
+        for r in rows:
+            vol = f"{r['volume_low_m3']}-{r['volume_high_m3']}" if r["volume_low_m3"] != "" else "-"
+            out.append(f"  {r['element']:<12} {r['class']:<9} {r['n_defects']:>7} {r['affected_area_m2']:>11} "
+                       f"{r['element_share_pct'] if r['element_share_pct'] != '' else '-':>8} {r['footprint_area_m2']:>12} {vol:>15}")
+        out.append("  depths are order-of-magnitude estimates (thin plate between clamped and simply supported edges)")
     if result.warnings:
         out += ["", "warnings:"] + [f"  {w}" for w in result.warnings]
     return "\n".join(out) + "\n"

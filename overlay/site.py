@@ -11,6 +11,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from .energy import DEFAULT_PERCENTILE, REFERENCES
+from .plate import aci318_modulus_pa
+from .zones import Concrete
 from .errors import OverlayWarning, SiteFileError
 from .frames import UNIT_TO_M
 from .tomlio import Fields, load_toml
@@ -18,6 +20,9 @@ from .tomlio import Fields, load_toml
 FORMAT = "overlay-site/1"
 DEFAULT_CLASSES = (("watch", 6.0), ("suspect", 10.0), ("probable", 15.0))
 DEFAULT_FORMATS = ("dxf", "gpkg", "quantities-csv")
+# common practice (from memory, CHECKS.md): a repair outline extends 150 mm beyond the sounded area;
+# UFGS 03 93 10 asks at least 25 mm for the saw cut
+REPAIR_MARGIN_M = 0.15
 
 
 @dataclass(frozen=True)
@@ -43,6 +48,15 @@ class MapFrame:
     scale: float = 1.0
     monuments: tuple[Monument, ...] = ()
     tolerance_m: float = 0.05
+
+
+@dataclass(frozen=True)
+class Elements:
+    """Where the element outlines (for area shares) come from: a GIS layer in the map CRS."""
+
+    source: Path
+    layer: str | None = None
+    id_field: str = "asset_id"
 
 
 @dataclass(frozen=True)
@@ -74,6 +88,11 @@ class Site:
     min_signal_level: float = 0.0
     min_snr_db: float | None = None
     min_area_m2: float = 0.01
+    concrete: Concrete = field(default_factory=Concrete)
+    margin_m: float = REPAIR_MARGIN_M
+    footprint: str = "aligned"
+    basis: str = "outline"
+    elements: Elements | None = None
     basename: str = "overlay"
     formats: tuple[str, ...] = DEFAULT_FORMATS
 
@@ -116,6 +135,13 @@ def read_site(path: str | Path) -> Site:
     min_area = zt.number("min_area_m2", 0.01, minimum=0.0) or 0.0
     classes = _classes(zt)
 
+    concrete = _concrete(doc)
+    rp = _table(doc, "repair")
+    margin = rp.number("margin_m", REPAIR_MARGIN_M, minimum=0.0)
+    footprint = rp.choice("footprint", ("aligned", "rotated"), default="aligned")
+    basis = rp.choice("basis", ("outline", "contour"), default="outline")
+    elements = _elements(doc, path)
+
     cps: dict[str, tuple[float, float]] = {}
     cp = doc.table_of("control_points")
     if cp is not None:
@@ -139,7 +165,7 @@ def read_site(path: str | Path) -> Site:
         missing = [str(e.bundle) for e in scans if e.healthy_region is None]
         if missing:
             raise en.fail("reference", f"'region' needs healthy_region on every scan; missing for {', '.join(missing)}")
-    for t in (doc, s, reg, en, qt, zt, out):
+    for t in (doc, s, reg, en, qt, zt, rp, out):
         _warn_unknown(t)
     return Site(
         path=path,
@@ -158,6 +184,11 @@ def read_site(path: str | Path) -> Site:
         min_signal_level=min_level,
         min_snr_db=min_snr,
         min_area_m2=min_area,
+        concrete=concrete,
+        margin_m=margin if margin is not None else REPAIR_MARGIN_M,
+        footprint=footprint,
+        basis=basis,
+        elements=elements,
         basename=basename,
         formats=tuple(formats),
     )
@@ -225,6 +256,37 @@ def _scans(doc: Fields, path: Path) -> list[ScanEntry]:
         else:
             out.append(ScanEntry(full, **extra))
         _warn_unknown(t)
+    return out
+
+
+def _concrete(doc: Fields) -> Concrete:
+    c = doc.table_of("concrete")
+    if c is None:
+        return Concrete()
+    if c.has("modulus_gpa") and c.has("fc_mpa"):
+        raise c.fail("modulus_gpa", "give modulus_gpa or fc_mpa (ACI 318 relation), not both")
+    if c.has("fc_mpa"):
+        modulus = aci318_modulus_pa(c.number("fc_mpa", positive=True) or 30.0)
+    else:
+        modulus = (c.number("modulus_gpa", Concrete().modulus_pa / 1e9, positive=True) or 0.0) * 1e9
+    density = c.number("density", 2400.0, positive=True) or 2400.0
+    poisson = c.number("poisson", 0.2, minimum=0.0) or 0.0
+    if poisson >= 0.5:
+        raise c.fail("poisson", f"must lie in 0..0.5, got {poisson:g}")
+    _warn_unknown(c)
+    return Concrete(modulus, density, poisson)
+
+
+def _elements(doc: Fields, path: Path) -> Elements | None:
+    e = doc.table_of("elements")
+    if e is None:
+        return None
+    source = e.string("source", required=True) or ""
+    full = path.parent / source
+    if not full.is_file():
+        raise e.fail("source", f"file not found: {full}")
+    out = Elements(full, e.string("layer"), e.string("id_field", "asset_id") or "asset_id")
+    _warn_unknown(e)
     return out
 
 

@@ -272,6 +272,35 @@ def records_spectra(
     return PointSpectra(energy, peak, snr, finite, plan.freqs, kept)
 
 
+def band_psd_rows(
+    records: np.ndarray,
+    gate: Gate,
+    band_hz: tuple[float, float],
+    velocity_scale: float,
+    rows: np.ndarray,
+    *,
+    chunk: int = DEFAULT_CHUNK,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Band frequencies and PSD of the chosen ``rows`` only (a zone's points), NaN where not finite."""
+    plan = _plan(gate, band_hz, velocity_scale, fft_workers=os.cpu_count() or 1)
+    rows = np.sort(np.asarray(rows, dtype=np.int64))
+    out = np.full((len(rows), len(plan.freqs)), np.nan, dtype=np.float32)
+    for k in range(0, len(rows), chunk):
+        sel = rows[k : k + chunk]
+        ok, *_, p = _chunk(np.asarray(records[sel]), plan, keep=True)
+        out[k : k + len(sel)] = np.where(ok[:, None], p, np.nan)
+    return plan.freqs, out
+
+
+def given_psd_rows(
+    spectra: np.ndarray, freqs: np.ndarray, band_hz: tuple[float, float], velocity_scale: float, rows: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Band frequencies and PSD of the chosen ``rows`` of a ready PSD payload."""
+    sl = band_slice(freqs, band_hz)
+    rows = np.sort(np.asarray(rows, dtype=np.int64))
+    return freqs[sl], np.asarray(spectra[rows][:, sl], dtype=np.float64) * velocity_scale**2
+
+
 def given_spectra(
     spectra: np.ndarray,
     freqs: np.ndarray,

@@ -94,11 +94,13 @@ def test_missing_site_file_exit_3(tmp_path: Path, capsys: pytest.CaptureFixture)
 def test_ready_ver_run_finds_the_bump(site: Path, tmp_path: Path) -> None:
     out = tmp_path / "out"
     assert main(["run", str(site), "--out", str(out), "-q"]) == 0
-    rows = (out / "overlay-quantities.csv").read_text().splitlines()
+    import csv
+
+    rows = list(csv.DictReader((out / "overlay-quantities.csv").open()))
     # 20 − 200 r² ≥ 6 dB ↔ r ≤ 0.2646 m: area π·0.07 = 0.2199 m² (hand-worked), within 2 %
-    watch = [r for r in rows if r.startswith("zone,EL-1,watch")]
-    assert len(watch) == 1
-    assert float(watch[0].split(",")[6]) == pytest.approx(np.pi * 0.07, rel=0.02)
+    watch = [r for r in rows if r["row_kind"] == "zone" and r["class"] == "watch"]
+    assert len(watch) == 1 and watch[0]["element"] == "EL-1"
+    assert float(watch[0]["contour_area_m2"]) == pytest.approx(np.pi * 0.07, rel=0.02)
 
 
 def test_describe(bundle: Path, capsys: pytest.CaptureFixture) -> None:

@@ -18,17 +18,17 @@ def test_every_detectable_defect_is_found(demo: dict) -> None:
     detectable = [d for d in _defects(demo) if d["detectable"]]
     assert len(detectable) >= 4
     for d in detectable:
-        hits = [z for z in zones if z.class_name == lowest and z.outline.contains(Point(d["center"]))]
+        hits = [z for z in zones if z.class_name == lowest and z.contour.contains(Point(d["center"]))]
         assert len(hits) == 1, d["id"]
 
 
 def test_zone_centroids_sit_on_their_defects(demo: dict) -> None:
     half = demo["truth"]["spacing_m"] / 2
     for z in demo["result"].zones:
-        owners = [d for d in _defects(demo) if Polygon(d["outline"]).contains(z.outline.centroid)]
+        owners = [d for d in _defects(demo) if Polygon(d["outline"]).contains(z.contour.centroid)]
         assert len(owners) == 1, f"{z.zone_id} lies on no truth defect"
         c = owners[0]["center"]
-        assert np.hypot(z.outline.centroid.x - c[0], z.outline.centroid.y - c[1]) < half, z.zone_id
+        assert np.hypot(z.contour.centroid.x - c[0], z.contour.centroid.y - c[1]) < half, z.zone_id
 
 
 def test_contour_areas_match_the_predicted_level_sets(demo: dict) -> None:
@@ -40,7 +40,7 @@ def test_contour_areas_match_the_predicted_level_sets(demo: dict) -> None:
         for cls, predicted in d["predicted_contour_area_m2"].items():
             if np.sqrt(predicted / np.pi) < 2 * spacing:
                 continue
-            zones = [z for z in demo["result"].zones if z.class_name == cls and z.outline.contains(Point(d["center"]))]
+            zones = [z for z in demo["result"].zones if z.class_name == cls and z.contour.contains(Point(d["center"]))]
             assert len(zones) == 1, (d["id"], cls)
             assert zones[0].area_m2 == pytest.approx(predicted, rel=0.15), (d["id"], cls)
             checked += 1
@@ -57,7 +57,7 @@ def test_undetectable_defect_leaves_no_zone(demo: dict) -> None:
     small = [d for d in _defects(demo) if not d["detectable"]]
     assert small
     for d in small:
-        assert not [z for z in demo["result"].zones if z.outline.distance(Point(d["center"])) < 0.05]
+        assert not [z for z in demo["result"].zones if z.contour.distance(Point(d["center"])) < 0.05]
 
 
 def test_peak_frequency_is_the_plate_frequency(demo: dict) -> None:
@@ -65,7 +65,7 @@ def test_peak_frequency_is_the_plate_frequency(demo: dict) -> None:
     for d in _defects(demo):
         if not d["detectable"]:
             continue
-        (z,) = [z for z in demo["result"].zones if z.class_name == "watch" and z.outline.contains(Point(d["center"]))]
+        (z,) = [z for z in demo["result"].zones if z.class_name == "watch" and z.contour.contains(Point(d["center"]))]
         assert z.peak_hz == pytest.approx(d["plate_frequency_hz"], rel=0.03)
 
 
@@ -86,8 +86,8 @@ def test_nested_classes(demo: dict) -> None:
         k = order.index(z.class_name)
         if k == 0:
             continue
-        lower = shapely.union_all([w.outline for w in zones if w.class_name == order[k - 1] and w.scan_id == z.scan_id])
-        assert lower.buffer(1e-6).contains(z.outline), z.zone_id
+        lower = shapely.union_all([w.contour for w in zones if w.class_name == order[k - 1] and w.scan_id == z.scan_id])
+        assert lower.buffer(1e-6).contains(z.contour), z.zone_id
 
 
 def test_incidence_correction_flattens_the_healthy_scan(demo: dict) -> None:

@@ -41,7 +41,7 @@ def test_dxf_layers_polylines_units_and_audit(written: dict) -> None:
         assert all(doc.layers.has_entry(n) for n in names.values())
         zones = [z for z in result.zones if z.class_name == zc.name]
         plines = msp.query(f'LWPOLYLINE[layer=="{names["outline"]}"]')
-        rings = sum(1 + len(z.outline.interiors) for z in zones)
+        rings = sum(1 + len(z.contour.interiors) for z in zones)
         assert len(plines) == rings
         assert all(p.closed for p in plines)  # group code 70 bit 1
         assert len(msp.query(f'HATCH[layer=="{names["fill"]}"]')) == len(zones)
@@ -56,9 +56,11 @@ def test_dxf_polyline_areas_equal_zone_areas(written: dict) -> None:
         if not pl.has_xdata(APPID):
             continue
         fields = dict(tag.value.split("=", 1) for tag in pl.get_xdata(APPID))
+        if "zone_id" not in fields:  # a repair footprint
+            continue
         zone = by_id[fields["zone_id"]]
         area = Polygon([p[:2] for p in pl.get_points()]).area  # shapely as reference for the area
-        holes = sum(Polygon(h.coords).area for h in zone.outline.interiors)
+        holes = sum(Polygon(h.coords).area for h in zone.contour.interiors)
         assert area - holes == pytest.approx(zone.area_m2, rel=1e-9)
         assert float(fields["area_m2"]) == pytest.approx(zone.area_m2, rel=1e-5)
         seen += 1
@@ -77,7 +79,7 @@ def test_dxf_tag_blocks_carry_attributes(written: dict) -> None:
         assert float(r.get_attrib_text("AREA_M2")) == pytest.approx(z.area_m2, abs=5e-4)
         assert float(r.get_attrib_text("CONF")) == pytest.approx(z.confidence, abs=5e-3)
         # the tag sits inside its zone
-        assert z.outline.contains(shapely.Point(r.dxf.insert[0], r.dxf.insert[1]))
+        assert z.contour.contains(shapely.Point(r.dxf.insert[0], r.dxf.insert[1]))
 
 
 def test_dxf_note_carries_the_cautions(written: dict) -> None:
@@ -106,7 +108,8 @@ def test_geopackage_against_ogc_standard(written: dict) -> None:
         assert {-1, 0, 4326, 25832} <= srs  # Req 10/11 mandatory rows, plus ours
         contents = dict(con.execute("select table_name, data_type from gpkg_contents"))
         assert contents == {"zones": "features", "points": "features", "scan_extents": "features",
-                            "targets": "features", "runs": "attributes"}
+                            "targets": "features", "defect_outlines": "features", "repair_footprints": "features",
+                            "runs": "attributes"}
         geo = {r[0]: (r[1], r[2]) for r in con.execute("select table_name, geometry_type_name, srs_id from gpkg_geometry_columns")}
         assert geo["zones"] == ("MULTIPOLYGON", 25832) and geo["points"] == ("POINT", 25832)
         assert geo["scan_extents"] == ("POLYGON", 25832)
@@ -147,10 +150,14 @@ def test_quantities_csv_totals_equal_sum_of_rows(written: dict) -> None:
     zone_rows = [r for r in rows if r["row_kind"] == "zone"]
     totals = [r for r in rows if r["row_kind"] == "element_total"]
     assert len(zone_rows) == len(result.zones)
+    assert totals
     for t in totals:
-        parts = [float(r["area_m2"]) for r in zone_rows if r["element"] == t["element"] and r["class"] == t["class"]]
-        assert float(t["area_m2"]) == pytest.approx(sum(parts), abs=1e-3)
-        assert int(t["n_zones"]) == len(parts)
+        # a class total counts each defect once (nested zones of one defect share its outline)
+        parts = {r["defect_id"]: r for r in zone_rows if r["element"] == t["element"] and r["class"] == t["class"]}
+        for col in ("affected_area_m2", "footprint_area_m2", "volume_low_m3", "volume_high_m3"):
+            assert float(t[col]) == pytest.approx(sum(float(r[col]) for r in parts.values()), abs=1e-3)
+        assert int(t["n_defects"]) == len(parts)
+        assert float(t["element_share_pct"]) == pytest.approx(100 * float(t["affected_area_m2"]) / float(t["element_area_m2"]), abs=1e-3)
 
 
 def test_report_carries_cautions(written: dict) -> None:

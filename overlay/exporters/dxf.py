@@ -45,6 +45,8 @@ def layer_names(class_name: str) -> dict[str, str]:
 
 
 EXTENT_LAYER = f"{PREFIX}-SCAN-EXTENT"
+DEFECT_LAYER = f"{PREFIX}-DEFECT-OUTLINE"
+REPAIR_LAYER = f"{PREFIX}-REPAIR-FOOTPRINT"
 TARGET_LAYER = f"{PREFIX}-CONTROL"
 NOTE_LAYER = f"{PREFIX}-NOTE"
 
@@ -65,7 +67,7 @@ class DxfExporter:
         msp = doc.modelspace()
         for zone in result.zones:
             names = layer_names(zone.class_name)
-            rings = [zone.outline.exterior, *zone.outline.interiors]
+            rings = [zone.contour.exterior, *zone.contour.interiors]
             outline = None
             for ring in rings:
                 pl = msp.add_lwpolyline(list(ring.coords)[:-1], close=True, dxfattribs={"layer": names["outline"]})
@@ -73,12 +75,12 @@ class DxfExporter:
             assert outline is not None
             outline.set_xdata(APPID, [(1000, clean_text(f"{k}={_fmt(v)}")) for k, v in zone.record().items()])
             hatch = msp.add_hatch(dxfattribs={"layer": names["fill"]})
-            hatch.paths.add_polyline_path(list(zone.outline.exterior.coords)[:-1], is_closed=True,
+            hatch.paths.add_polyline_path(list(zone.contour.exterior.coords)[:-1], is_closed=True,
                                           flags=const.BOUNDARY_PATH_EXTERNAL | const.BOUNDARY_PATH_OUTERMOST)
-            for hole in zone.outline.interiors:
+            for hole in zone.contour.interiors:
                 hatch.paths.add_polyline_path(list(hole.coords)[:-1], is_closed=True, flags=const.BOUNDARY_PATH_DEFAULT)
             hatch.transparency = 0.6
-            p = _label_point(zone.outline)
+            p = _label_point(zone.contour)
             ref = msp.add_blockref(TAG_BLOCK, p, dxfattribs={"layer": names["text"]})
             ref.add_auto_attribs({
                 "ID": clean_text(zone.zone_id),
@@ -87,6 +89,16 @@ class DxfExporter:
                 "PEAK_HZ": f"{zone.peak_hz:.0f}" if zone.peak_hz == zone.peak_hz else "",
                 "CONF": f"{zone.confidence:.2f}",
             })
+        for zone in result.zones:
+            if zone.defect_id != zone.zone_id:
+                continue
+            if not zone.defect.is_empty:
+                msp.add_lwpolyline(list(zone.defect.exterior.coords)[:-1], close=True, dxfattribs={"layer": DEFECT_LAYER})
+            fp = msp.add_lwpolyline(list(zone.footprint.exterior.coords)[:-1], close=True, dxfattribs={"layer": REPAIR_LAYER})
+            fp.set_xdata(APPID, [(1000, clean_text(f"defect_id={zone.defect_id}")),
+                                 (1000, f"footprint_area_m2={zone.footprint_area_m2:.4f}"),
+                                 (1000, f"footprint_length_m={zone.footprint_length_m:.3f}"),
+                                 (1000, f"footprint_width_m={zone.footprint_width_m:.3f}")])
         for scan in result.scans:
             if not scan.extent.is_empty:
                 msp.add_lwpolyline(list(scan.extent.exterior.coords)[:-1], close=True, dxfattribs={"layer": EXTENT_LAYER})
@@ -113,6 +125,8 @@ def _layers(doc: ezdxf.document.Drawing, result: "RunResult") -> None:
         for kind, name in layer_names(zc.name).items():
             doc.layers.add(name, color=colour)
     doc.layers.add(EXTENT_LAYER, color=8, linetype="DASHED")
+    doc.layers.add(DEFECT_LAYER, color=1, linetype="DASHED")
+    doc.layers.add(REPAIR_LAYER, color=3)
     doc.layers.add(TARGET_LAYER, color=4)
     doc.layers.add(NOTE_LAYER, color=7)
 

@@ -38,16 +38,18 @@ def to_output_frame(result: "RunResult") -> tuple[Any, Any]:
 class GeoPackageExporter:
     name = "gpkg"
     suffix = ".gpkg"
-    description = "layers zones, points, scan_extents, targets and table runs (GeoPackage 1.3, map CRS)"
+    description = "layers zones, defect_outlines, repair_footprints, points, scan_extents, targets, table runs (GeoPackage 1.3)"
 
     def write(self, result: "RunResult", path: Path) -> None:
         move, crs = to_output_frame(result)
         zones = result.zones
         zrec = pd.DataFrame([z.record() for z in zones]) if zones else pd.DataFrame(columns=list(ZONE_FIELDS))
-        zgeom = [MultiPolygon([move(z.outline)]) for z in zones]
+        zgeom = [MultiPolygon([move(z.contour)]) for z in zones]
         layers: list[tuple[str, gpd.GeoDataFrame, str]] = [
             ("zones", gpd.GeoDataFrame(zrec, geometry=gpd.GeoSeries(zgeom, crs=crs), crs=crs), "MultiPolygon"),
             ("points", _points(result, move, crs), "Point"),
+            ("defect_outlines", _defects(result, move, crs, "defect"), "Polygon"),
+            ("repair_footprints", _defects(result, move, crs, "footprint"), "Polygon"),
             ("scan_extents", _extents(result, move, crs), "Polygon"),
             ("targets", _targets(result, move, crs), "Point"),
         ]
@@ -84,6 +86,22 @@ def _points(result: "RunResult", move: Any, crs: Any) -> gpd.GeoDataFrame:
         df[col] = df[col].where(np.isfinite(df[col]), np.nan)
     geom = gpd.points_from_xy(df.pop("x"), df.pop("y"), crs=crs)
     return gpd.GeoDataFrame(df, geometry=geom, crs=crs)
+
+
+def _defects(result: "RunResult", move: Any, crs: Any, which: str) -> gpd.GeoDataFrame:
+    """One row per defect (its lowest-class zone): the estimated outline or the repair footprint."""
+    rows, geoms = [], []
+    for z in result.zones:
+        if z.defect_id != z.zone_id:
+            continue
+        rows.append({"defect_id": z.defect_id, "scan_id": z.scan_id, "element": z.element,
+                     "outline_area_m2": z.outline_area_m2, "footprint_area_m2": z.footprint_area_m2,
+                     "footprint_length_m": z.footprint_length_m, "footprint_width_m": z.footprint_width_m,
+                     "depth_low_m": z.depth_low_m, "depth_high_m": z.depth_high_m})
+        geoms.append(move(getattr(z, which)))
+    if not rows:
+        return gpd.GeoDataFrame({"defect_id": []}, geometry=gpd.GeoSeries([], crs=crs), crs=crs)
+    return gpd.GeoDataFrame(rows, geometry=geoms, crs=crs)
 
 
 def _extents(result: "RunResult", move: Any, crs: Any) -> gpd.GeoDataFrame:

@@ -1,49 +1,84 @@
 """Quantities CSV for the repair contractor: one row per zone, then one per (element, class).
 
-Classes are nested (a higher class lies inside the lower one), so areas of
-different classes must not be added up; each class total stands alone.
+Each zone's affected area is its estimated defect outline (``basis = outline``,
+the default) or its class contour.  Classes are nested, so a defect appears in
+every class it reaches; a class total counts each defect once and answers
+"what does it take to repair every defect of at least this class".  Do not add
+totals of different classes.
 """
 
 from __future__ import annotations
 
 import csv
-from collections import defaultdict
 from pathlib import Path
 from typing import TYPE_CHECKING
 
 if TYPE_CHECKING:
     from ..pipeline import RunResult
+    from ..zones import Zone
 
-COLUMNS = ("row_kind", "element", "class", "zone_id", "scan_id", "n_zones", "area_m2", "perimeter_m",
-           "peak_hz", "confidence")
+COLUMNS = (
+    "row_kind", "element", "class", "zone_id", "defect_id", "scan_id", "n_defects", "basis",
+    "contour_area_m2", "outline_area_m2", "affected_area_m2",
+    "footprint_length_m", "footprint_width_m", "footprint_area_m2",
+    "depth_low_m", "depth_high_m", "volume_low_m3", "volume_high_m3",
+    "element_area_m2", "element_share_pct", "peak_hz", "confidence",
+)
+
+
+def _r(v: float, nd: int) -> object:
+    return "" if v != v else round(v, nd)
+
+
+def affected_area(z: "Zone", basis: str) -> float:
+    return z.outline_area_m2 if basis == "outline" else z.area_m2
 
 
 def quantity_rows(result: "RunResult") -> list[dict[str, object]]:
-    """Zone rows followed by per-(element, class) totals; areas in m²."""
-    rows: list[dict[str, object]] = []
-    totals: dict[tuple[str, str], list[float]] = defaultdict(lambda: [0, 0.0, 0.0])
+    """Zone rows followed by per-(element, class) totals; areas m², lengths m, volumes m³."""
+    basis = result.site.basis
+    areas = result.element_areas
     order = {c.name: i for i, c in enumerate(result.site.classes)}
-    for z in sorted(result.zones, key=lambda z: (z.element, order[z.class_name], z.zone_id)):
-        rows.append({"row_kind": "zone", "element": z.element, "class": z.class_name, "zone_id": z.zone_id,
-                     "scan_id": z.scan_id, "n_zones": 1, "area_m2": round(z.area_m2, 4),
-                     "perimeter_m": round(z.perimeter_m, 3),
-                     "peak_hz": "" if z.peak_hz != z.peak_hz else round(z.peak_hz, 1),
-                     "confidence": z.confidence})
-        t = totals[(z.element, z.class_name)]
-        t[0] += 1
-        t[1] += z.area_m2
-        t[2] += z.perimeter_m
-    for (element, cls), (n, area, perim) in sorted(totals.items(), key=lambda kv: (kv[0][0], order[kv[0][1]])):
-        rows.append({"row_kind": "element_total", "element": element, "class": cls, "zone_id": "", "scan_id": "",
-                     "n_zones": int(n), "area_m2": round(area, 4), "perimeter_m": round(perim, 3),
-                     "peak_hz": "", "confidence": ""})
+    zones = sorted(result.zones, key=lambda z: (z.element, order[z.class_name], z.zone_id))
+    rows: list[dict[str, object]] = []
+    for z in zones:
+        a = affected_area(z, basis)
+        el = areas.get(z.element, float("nan"))
+        rows.append({
+            "row_kind": "zone", "element": z.element, "class": z.class_name, "zone_id": z.zone_id,
+            "defect_id": z.defect_id, "scan_id": z.scan_id, "n_defects": 1, "basis": basis,
+            "contour_area_m2": _r(z.area_m2, 4), "outline_area_m2": _r(z.outline_area_m2, 4), "affected_area_m2": _r(a, 4),
+            "footprint_length_m": _r(z.footprint_length_m, 3), "footprint_width_m": _r(z.footprint_width_m, 3),
+            "footprint_area_m2": _r(z.footprint_area_m2, 4), "depth_low_m": _r(z.depth_low_m, 4),
+            "depth_high_m": _r(z.depth_high_m, 4), "volume_low_m3": _r(z.volume_low_m3, 5),
+            "volume_high_m3": _r(z.volume_high_m3, 5), "element_area_m2": _r(el, 3),
+            "element_share_pct": _r(100 * a / el, 3), "peak_hz": _r(z.peak_hz, 1), "confidence": z.confidence,
+        })
+    groups: dict[tuple[str, str], dict[str, "Zone"]] = {}
+    for z in zones:
+        key = z.defect_id if basis == "outline" else z.zone_id
+        groups.setdefault((z.element, z.class_name), {}).setdefault(key, z)
+    for (element, cls), members in groups.items():
+        ms = list(members.values())
+        a = sum(affected_area(z, basis) for z in ms)
+        el = areas.get(element, float("nan"))
+        rows.append({
+            "row_kind": "element_total", "element": element, "class": cls, "zone_id": "", "defect_id": "", "scan_id": "",
+            "n_defects": len(ms), "basis": basis, "contour_area_m2": _r(sum(z.area_m2 for z in ms), 4),
+            "outline_area_m2": _r(sum(z.outline_area_m2 for z in ms), 4), "affected_area_m2": _r(a, 4),
+            "footprint_length_m": "", "footprint_width_m": "",
+            "footprint_area_m2": _r(sum(z.footprint_area_m2 for z in ms), 4),
+            "depth_low_m": "", "depth_high_m": "",
+            "volume_low_m3": _r(sum(z.volume_low_m3 for z in ms), 5), "volume_high_m3": _r(sum(z.volume_high_m3 for z in ms), 5),
+            "element_area_m2": _r(el, 3), "element_share_pct": _r(100 * a / el, 3), "peak_hz": "", "confidence": "",
+        })
     return rows
 
 
 class QuantitiesCsvExporter:
     name = "quantities-csv"
     suffix = "-quantities.csv"
-    description = "affected area per zone and per (element, class), m² (CSV)"
+    description = "affected area, repair footprint and removal volume per zone and per (element, class) (CSV)"
 
     def write(self, result: "RunResult", path: Path) -> None:
         with path.open("w", newline="", encoding="utf-8") as fh:
