@@ -133,7 +133,7 @@ def _largest(geom: object) -> Polygon:
 class ScatterGrid:
     """Scattered points resampled onto a regular grid at their own spacing.
 
-    Values are interpolated linearly over the Delaunay triangles of the usable
+    Values are interpolated (piecewise cubic, Clough-Tocher) over the Delaunay triangles of the usable
     points; nodes outside the scanned area (outside every triangle whose edges
     are at most ``max_edge`` spacings long) are masked.  Same interface as Grid.
     """
@@ -141,9 +141,8 @@ class ScatterGrid:
     def __init__(self, xy: np.ndarray, max_edge: float = 2.5):
         if len(xy) < 3:
             raise BundleError("at least 3 points are needed to contour scattered points")
-        tree = scipy.spatial.cKDTree(xy)
-        d, _ = tree.query(xy, k=2)
-        self.step = float(np.median(d[:, 1]))
+        hull = scipy.spatial.ConvexHull(xy)
+        self.step = float(np.sqrt(hull.volume / len(xy)))  # the spacing of a regular grid of equal density
         if not self.step > 0:
             raise BundleError("scattered points coincide; cannot tell their spacing")
         self.xy = xy
@@ -172,7 +171,7 @@ class ScatterGrid:
         ok = usable & np.isfinite(per_point)
         if ok.sum() < 3:
             raise BundleError("fewer than 3 usable scattered points to interpolate")
-        interp = scipy.interpolate.LinearNDInterpolator(self.xy[ok], per_point[ok])
+        interp = scipy.interpolate.CloughTocher2DInterpolator(self.xy[ok], per_point[ok])
         z = interp(self.x, self.y)
         mask = ~self._inside | ~np.isfinite(z)
         return np.ma.MaskedArray(np.where(mask, 0.0, z), mask=mask)
@@ -184,5 +183,5 @@ class ScatterGrid:
         return self._area
 
     def spacing(self) -> float:
-        """The points' own spacing (median nearest-neighbour distance), not the finer resampling step."""
+        """The points' own spacing (that of a regular grid of the same density), not the finer resampling step."""
         return self.step

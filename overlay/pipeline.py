@@ -265,12 +265,14 @@ def process_scan(
     spacing_d = spacing * to_drawing.scale  # grid spacing in drawing units
     extent = to_drawing.apply_geometry(grid.extent())
     values = grid.contour_values(ver, valid)
+    scan_area = grid.extent()
     zone_psd = _zone_psd_source(scan, gate)
     zones: list[Zone] = []
     parents: list[Zone] = []
     lower = None
     for ci, zc in enumerate(site.classes):
-        contours = _class_contours(grid, values, zc.threshold_db, to_drawing, spacing_d, lower, site.min_area_m2 / (u * u))
+        contours = _class_contours(grid, values, zc.threshold_db, scan_area, to_drawing, spacing_d, lower,
+                                   site.min_area_m2 / (u * u))
         built = []
         for k, contour in enumerate(contours, start=1):
             zone = _build_zone(f"{scan.scan_id}.{zc.name}.{k:02d}", scan.scan_id, element, zc.name, zc.threshold_db,
@@ -310,12 +312,14 @@ def process_scan(
     )
 
 
-def _class_contours(grid: Grid | ScatterGrid, values: np.ma.MaskedArray, level: float, to_drawing: Similarity,
-                    spacing_d: float, lower: object, min_area: float) -> list[Polygon]:
-    """Contours of one class in the drawing frame: simplified within 5 % of a spacing, clipped into
-    the lower class (so classes nest exactly), small ones dropped, ordered by position."""
+def _class_contours(grid: Grid | ScatterGrid, values: np.ma.MaskedArray, level: float, scan_area: Polygon,
+                    to_drawing: Similarity, spacing_d: float, lower: object, min_area: float) -> list[Polygon]:
+    """Contours of one class in the drawing frame: kept inside the scanned area, simplified within 5 %
+    of a spacing, clipped into the lower class (so classes nest exactly), small ones dropped, ordered."""
     out = []
     for poly in level_polygons(grid, values, level):
+        if isinstance(grid, ScatterGrid):
+            poly = poly.intersection(scan_area)
         c = to_drawing.apply_geometry(poly).simplify(SIMPLIFY * spacing_d, preserve_topology=True)
         if lower is not None:
             c = c.intersection(lower)

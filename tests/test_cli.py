@@ -172,3 +172,22 @@ def test_monuments_fit_places_the_drawing(tmp_path: Path) -> None:
     assert (minx, maxx) == pytest.approx((511979.0, 511980.0), abs=1e-6)
     assert (miny, maxy) == pytest.approx((5712010.0, 5712011.0), abs=1e-6)
     assert "monuments" in (out / "overlay-report.txt").read_text()
+
+
+def test_scattered_points_without_row_col_run_end_to_end(tmp_path: Path) -> None:
+    # jittered points, no row/col: resampled and contoured; 20 − 200 r² ≥ 6 dB ↔ area π·0.07 m² (2 %)
+    folder = tmp_path / "S-1"
+    rng = np.random.default_rng(3)
+    rr, cc = np.mgrid[0:31, 0:31]
+    xy = np.column_stack([cc.ravel(), rr.ravel()]) * 0.05 + rng.uniform(-0.015, 0.015, (961, 2))
+    ver = 20.0 - 200.0 * ((xy[:, 0] - 0.75) ** 2 + (xy[:, 1] - 0.75) ** 2)
+    write_bundle(folder, n_rows=31, n_cols=31, spacing=0.05, payload="ver", ver=ver, points_header="id,x,y,ver_db")
+    lines = (folder / "points.csv").read_text().splitlines()
+    lines = [lines[0]] + [f"P{k},{x:.5f},{y:.5f},{v:.4f}" for k, ((x, y), v) in enumerate(zip(xy, ver))]
+    (folder / "points.csv").write_text("\n".join(lines) + "\n")
+    from overlay.pipeline import run_site
+    from overlay.site import read_site
+
+    result = run_site(read_site(write_site(tmp_path, ["S-1"])))
+    (watch,) = [z for z in result.zones if z.class_name == "watch"]
+    assert watch.area_m2 == pytest.approx(np.pi * 0.07, rel=0.02)

@@ -110,3 +110,46 @@ def test_incidence_correction_flattens_the_healthy_scan(demo: dict) -> None:
     drop = np.median(off.ver_db[far]) - np.median(off.ver_db[near])
     expected = np.median(10 * np.log10(np.cos(np.radians(on.incidence_deg[far])) ** 2))
     assert drop == pytest.approx(expected, abs=0.2) and drop < -0.6
+
+
+def _lowest_zone(demo: dict, d: dict):
+    (z,) = [z for z in demo["result"].zones if z.class_name == "watch" and z.contour.contains(Point(d["center"]))]
+    return z
+
+
+def test_defect_outline_beats_the_contour_and_matches_truth(demo: dict) -> None:
+    # issue 4: outline areas within 10 % of the truth outlines for the detectable defects, and closer
+    # to the true footprint than the threshold contour — so quantities use the outline (basis)
+    assert demo["result"].site.basis == "outline"
+    for d in _defects(demo):
+        if not d["detectable"]:
+            continue
+        z = _lowest_zone(demo, d)
+        truth = Polygon(d["outline"])
+        assert z.outline_area_m2 == pytest.approx(d["area_m2"], rel=0.10), d["id"]
+        assert abs(z.outline_area_m2 - d["area_m2"]) < abs(z.area_m2 - d["area_m2"])
+        iou_outline = z.defect.intersection(truth).area / z.defect.union(truth).area
+        iou_contour = z.contour.intersection(truth).area / z.contour.union(truth).area
+        assert iou_outline > iou_contour and iou_outline > 0.9
+
+
+def test_depth_ranges_contain_the_truth_depth(demo: dict) -> None:
+    for d in _defects(demo):
+        if not d["detectable"]:
+            continue
+        z = _lowest_zone(demo, d)
+        assert z.depth_low_m <= d["depth_m"] <= z.depth_high_m, (d["id"], z.depth_low_m, z.depth_high_m)
+
+
+def test_every_zone_field_is_filled(demo: dict) -> None:
+    for z in demo["result"].zones:
+        rec = z.record()
+        for k, v in rec.items():
+            assert v == v and v != "", (z.zone_id, k)  # no NaN, no blank
+        assert z.footprint.contains(z.defect.buffer(0.149))
+
+
+def test_element_shares_from_the_asset_register(demo: dict) -> None:
+    areas = demo["result"].element_areas
+    # the asset GeoPackage's soffit panels: span 1 bay 2 is 14.0 m × 2.6 m (scenario.toml)
+    assert areas["KLO2-S1-B2"] == pytest.approx(36.4, rel=1e-6)
