@@ -7,7 +7,7 @@ import warnings
 import pyogrio
 
 from .errors import SiteFileError
-from .frames import Similarity
+from .transforms import Similarity
 from .site import Elements
 
 

@@ -23,10 +23,13 @@ from .contour import level_polygons
 from .elements import element_areas
 from .energy import Reference, reference_energy, ver_db
 from .errors import BundleError, BundleWarning, RegistrationError, SignalError
-from .frames import UNIT_TO_M, Fit, Similarity, check_fit, check_map_crs, fit_similarity, from_placement, to_crs
-from .beam import cos_incidence_from_angles, cos_incidence_from_head, normal_energy
+from .fits import Fit, check_fit, fit_points
+from .frames import UNIT_TO_M, check_map_crs, from_placement, to_crs
+from .transforms import Similarity, Transform
+from .beam import normal_energy
 from .gate import Gate, make_gate, window_from_geometry
 from .grid import Grid, ScatterGrid, grid_from_indices, infer_grid
+from .registration import TargetResult, register
 from .site import ScanEntry, Site
 from .spectra import band_psd_rows, given_psd_rows, given_spectra, parabolic_peak, records_spectra
 from .zones import (
@@ -40,14 +43,6 @@ from .zones import (
 )
 
 SIMPLIFY = 0.05  # contours are simplified within this fraction of the grid spacing
-
-
-@dataclass
-class TargetResult:
-    name: str
-    scanner: tuple[float, float]
-    drawing: tuple[float, float]
-    residual: tuple[float, float]
 
 
 @dataclass
@@ -65,6 +60,7 @@ class ScanResult:
     incidence: str
     fit: Fit
     fit_passed: bool
+    fit_describe: str
     spacing_m: float
     extent: Polygon
     point_ids: np.ndarray
@@ -139,68 +135,31 @@ def choose_gate(scan: Scan) -> Gate:
     return make_gate(window, scan.sample_rate_hz, int(scan.records.shape[-1]), scan.band_hz[0], how, source=src)
 
 
-def scan_grid(scan: Scan) -> Grid | ScatterGrid:
-    """The scan's grid from row/col, else a regular grid inferred from the coordinates, else a resampled one."""
+def scan_grid(scan: Scan, xy: np.ndarray | None = None) -> Grid | ScatterGrid:
+    """The scan's grid on coordinates ``xy`` (default: the bundle's): from row/col, else a regular grid
+    inferred from the bundle's coordinates, else the points resampled onto one."""
+    xy = scan.xy if xy is None else xy
     if scan.row is not None and scan.col is not None:
-        return grid_from_indices(scan.xy, scan.row, scan.col)
-    return infer_grid(scan.xy) or ScatterGrid(scan.xy)
+        return grid_from_indices(xy, scan.row, scan.col)
+    regular = infer_grid(scan.xy)
+    if regular is None:
+        return ScatterGrid(xy)
+    r, c = np.nonzero(regular.index >= 0)
+    rows = np.empty(scan.n_points, dtype=np.int64)
+    cols = np.empty(scan.n_points, dtype=np.int64)
+    rows[regular.index[r, c]], cols[regular.index[r, c]] = r, c
+    return grid_from_indices(xy, rows, cols)
 
 
-def register_scan(scan: Scan, site: Site, entry_src: str) -> tuple[Fit, bool, list[TargetResult]]:
-    """Fit scanner → drawing from the scan's control targets and check it against the site tolerance."""
-    names, src, dst = [], [], []
-    for t in scan.targets:
-        drawing = site.control_points.get(t.name, t.drawing)
-        if drawing is None:
-            warnings.warn(f"{entry_src}: target {t.name} has no drawing coordinates; not used", BundleWarning, stacklevel=2)
-            continue
-        if t.name in site.control_points and t.drawing is not None:
-            gap = float(np.hypot(*(np.subtract(site.control_points[t.name], t.drawing))))
-            if gap > site.tolerance:
-                warnings.warn(
-                    f"{entry_src}: target {t.name}: site file and bundle differ by {gap:.4f}; using the site file",
-                    BundleWarning,
-                    stacklevel=2,
-                )
-        names.append(t.name)
-        src.append(t.scanner)
-        dst.append(drawing)
-    if len(names) < 2:
-        raise RegistrationError(
-            f"scanner→drawing needs at least 2 targets with drawing coordinates, found {len(names)}"
-            f" ({', '.join(names) or 'none'})",
-            source=entry_src,
-            field="targets",
-        )
-    fit = fit_similarity(np.array(src), np.array(dst), names)
-    passed = check_fit(fit, site.tolerance, site.drawing_unit, accept=site.accept_misfit, source=entry_src)
-    targets = [
-        TargetResult(n, tuple(s), tuple(d), tuple(r)) for n, s, d, r in zip(names, src, dst, fit.residuals.tolist())
-    ]
-    return fit, passed, targets
-
-
-def incidence_cosines(scan: Scan, entry: ScanEntry) -> tuple[np.ndarray | None, str]:
-    """cos θ of the beam at each point where the scan geometry gives it, and how it was found."""
-    if scan.kind == "angles":
-        return cos_incidence_from_angles(scan.xy), "from mirror angles"
-    standoff = scan.geometry.head_distance_m
-    if entry.head_xy is not None and standoff is not None:
-        head = (entry.head_xy[0] * scan.unit_scale, entry.head_xy[1] * scan.unit_scale)
-        return cos_incidence_from_head(scan.xy, head, standoff), "from head position and standoff"
-    return None, "not available (no angles, no head_xy with head_distance_m)"
-
-
-def healthy_mask(scan: Scan, entry: ScanEntry, to_drawing: Similarity) -> np.ndarray | None:
+def healthy_mask(scan: Scan, entry: ScanEntry, point_xy: np.ndarray) -> np.ndarray | None:
     """Points inside the scan's healthy region (drawing frame, or scanner frame in the bundle's unit)."""
     if entry.healthy_region is None:
         return None
     if entry.healthy_region_frame == "drawing":
-        region = Polygon(entry.healthy_region)
-        xy = to_drawing.apply(scan.xy)
+        region, xy = Polygon(entry.healthy_region), point_xy
     else:
-        region = Polygon([(x * scan.unit_scale, y * scan.unit_scale) for x, y in entry.healthy_region])
-        xy = scan.xy
+        k = scan.unit_scale if scan.kind == "surface" else 1.0
+        region, xy = Polygon([(x * k, y * k) for x, y in entry.healthy_region]), scan.xy
     return shapely.contains_xy(region, xy[:, 0], xy[:, 1])
 
 
@@ -211,14 +170,16 @@ def process_scan(
     src = str(scan.path)
     n = scan.n_points
     reason = np.where(scan.valid, "", "flagged").astype(object)
-    grid = scan_grid(scan)
+    reg = register(scan, entry, site)
+    to_drawing = reg.to_drawing
+    xy_work = reg.working(scan.xy)
+    point_xy = to_drawing.apply(xy_work)
+    grid = scan_grid(scan, xy_work)
     spacing = grid.spacing()
-    fit, passed, targets = register_scan(scan, site, src)
-    to_drawing = fit.transform
     gate: Gate | None = None
     reference: Reference | None = None
     snr = np.full(n, np.nan)
-    cos_inc, how = incidence_cosines(scan, entry)
+    cos_inc, how = reg.cos_incidence, reg.incidence_how
     incidence_deg = np.degrees(np.arccos(np.clip(cos_inc, 0, 1))) if cos_inc is not None else np.full(n, np.nan)
     if scan.payload == "ver":
         assert scan.ver_db is not None
@@ -249,7 +210,7 @@ def process_scan(
             valid &= ~bad
         if not valid.any():
             raise SignalError("no valid point in the scan (all flagged, non-finite or below the quality floors)", source=src)
-        region = healthy_mask(scan, entry, to_drawing) if site.reference == "region" else None
+        region = healthy_mask(scan, entry, point_xy) if site.reference == "region" else None
         reference = reference_energy(energy, valid, site.reference, site.percentile, region, source=src)
         ver = ver_db(energy, reference.energy)
         bad = valid & ~np.isfinite(ver)
@@ -261,8 +222,7 @@ def process_scan(
 
     element = entry.element or scan.element or ""
     surveyed = scan.surveyed.astimezone(dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ") if scan.surveyed else ""
-    point_xy = to_drawing.apply(scan.xy)
-    spacing_d = spacing * to_drawing.scale  # grid spacing in drawing units
+    spacing_d = spacing * to_drawing.local_scale(xy_work)  # grid spacing in drawing units
     extent = to_drawing.apply_geometry(grid.extent())
     values = grid.contour_values(ver, valid)
     scan_area = grid.extent()
@@ -294,8 +254,9 @@ def process_scan(
         gate=gate,
         reference=reference,
         incidence=incidence,
-        fit=fit,
-        fit_passed=passed,
+        fit=reg.fit,
+        fit_passed=reg.passed,
+        fit_describe=reg.describe,
         spacing_m=spacing_d * u,
         extent=extent,
         point_ids=scan.point_ids,
@@ -307,13 +268,13 @@ def process_scan(
         incidence_deg=incidence_deg,
         valid=valid,
         invalid_reason=reason,
-        targets=targets,
+        targets=reg.targets,
         zones=zones,
     )
 
 
 def _class_contours(grid: Grid | ScatterGrid, values: np.ma.MaskedArray, level: float, scan_area: Polygon,
-                    to_drawing: Similarity, spacing_d: float, lower: object, min_area: float) -> list[Polygon]:
+                    to_drawing: Transform, spacing_d: float, lower: object, min_area: float) -> list[Polygon]:
     """Contours of one class in the drawing frame: kept inside the scanned area, simplified within 5 %
     of a spacing, clipped into the lower class (so classes nest exactly), small ones dropped, ordered."""
     out = []
@@ -408,7 +369,8 @@ def map_placement(site: Site, site_xy: np.ndarray) -> tuple[Similarity | None, p
     if m.origin is not None:
         t = from_placement(m.origin, m.bearing_deg, m.scale, site.drawing_unit)
     else:
-        fit = fit_similarity(
+        fit = fit_points(
+            "similarity",
             np.array([mo.drawing for mo in m.monuments]),
             np.array([mo.map for mo in m.monuments]),
             [mo.name for mo in m.monuments],

@@ -49,7 +49,8 @@ def run_report(result: "RunResult") -> str:
                 reasons[r] += 1
         if reasons:
             out.append("  invalid points: " + ", ".join(f"{k} {v}" for k, v in sorted(reasons.items())))
-        out.append(f"  scanner -> drawing ({'passed' if s.fit_passed else 'MISFIT ACCEPTED BY OVERRIDE'}):")
+        verdict = "passed" if s.fit_passed else "MISFIT ACCEPTED BY OVERRIDE"
+        out.append(f"  scanner -> drawing: {s.fit_describe}, tolerance {site.tolerance:g} {unit}, {verdict}:")
         out += ["    " + line for line in s.fit.report(unit)]
     out += ["", "zones (area: class contour; outline: estimated defect outline):"]
     if not result.zones:

@@ -23,6 +23,7 @@ DEFAULT_FORMATS = ("dxf", "gpkg", "quantities-csv")
 # common practice (from memory, CHECKS.md): a repair outline extends 150 mm beyond the sounded area;
 # UFGS 03 93 10 asks at least 25 mm for the saw cut
 REPAIR_MARGIN_M = 0.15
+MODEL_CHOICES = ("auto", "similarity", "affine", "projective")
 
 
 @dataclass(frozen=True)
@@ -68,6 +69,8 @@ class ScanEntry:
     healthy_region: tuple[tuple[float, float], ...] | None = None
     healthy_region_frame: str = "drawing"
     head_xy: tuple[float, float] | None = None
+    model: str | None = None
+    tilt_deg: tuple[float, float] | None = None
 
 
 @dataclass
@@ -82,6 +85,7 @@ class Site:
     map: MapFrame | None = None
     tolerance: float = 0.02
     accept_misfit: bool = False
+    model: str = "auto"
     reference: str = "percentile"
     percentile: float = DEFAULT_PERCENTILE
     incidence_correction: bool = True
@@ -117,6 +121,7 @@ def read_site(path: str | Path) -> Site:
     reg = _table(doc, "registration")
     tolerance = reg.number("tolerance", 0.02, positive=True) or 0.02
     accept = bool(_bool(reg, "accept_misfit", False))
+    model = reg.choice("model", MODEL_CHOICES, default="auto")
 
     en = _table(doc, "energy")
     reference = en.choice("reference", REFERENCES, default="percentile")
@@ -178,6 +183,7 @@ def read_site(path: str | Path) -> Site:
         map=map_frame,
         tolerance=tolerance,
         accept_misfit=accept,
+        model=model,
         reference=reference,
         percentile=percentile,
         incidence_correction=incidence,
@@ -246,6 +252,8 @@ def _scans(doc: Fields, path: Path) -> list[ScanEntry]:
             "healthy_region": _region(t),
             "healthy_region_frame": t.choice("healthy_region_frame", ("drawing", "scanner"), default="drawing"),
             "head_xy": t.pair("head_xy"),
+            "model": t.choice("model", MODEL_CHOICES, default="auto") if t.has("model") else None,
+            "tilt_deg": t.pair("tilt_deg"),
         }
         full = path.parent / pattern
         if glob.has_magic(pattern):

@@ -117,7 +117,8 @@ def _targets(result: "RunResult", move: Any, crs: Any) -> gpd.GeoDataFrame:
         for t in s.targets:
             rows.append({"scan_id": s.scan_id, "name": t.name, "scanner_x": t.scanner[0], "scanner_y": t.scanner[1],
                          "drawing_x": t.drawing[0], "drawing_y": t.drawing[1],
-                         "residual_m": float(np.hypot(*t.residual)) * u})
+                         "residual_m": float(np.hypot(*t.residual)) * u,
+                         "leave_one_out_m": t.loo * u, "fit_model": s.fit.model, "fit_passed": int(s.fit_passed)})
             geom.append(move(Point(t.drawing)))
     if not rows:
         return gpd.GeoDataFrame({"scan_id": [], "name": []}, geometry=gpd.GeoSeries([], crs=crs), crs=crs)
@@ -140,8 +141,13 @@ def _runs(result: "RunResult") -> pd.DataFrame:
             "reference_detail": s.reference.describe() if s.reference else "",
             "incidence": s.incidence,
             "fit_model": s.fit.model,
+            "fit_frame": s.fit_describe,
+            "fit_params": json.dumps(s.fit.transform.params()),
             "fit_rms": s.fit.rms,
+            "fit_max": s.fit.worst[1],
+            "fit_tolerance": result.site.tolerance,
             "fit_passed": int(s.fit_passed),
+            "fit_override": int(result.site.accept_misfit and not s.fit_passed),
             "settings": json.dumps(result.settings(), sort_keys=True),
             "cautions": " ".join(CAUTIONS),
         })
