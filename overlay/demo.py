@@ -21,6 +21,7 @@ from __future__ import annotations
 import json
 import math
 import shutil
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -177,31 +178,90 @@ def _band_energy(x: np.ndarray, fs: float, band: tuple[float, float]) -> float:
     return float(p[sel].sum() * fs / n)
 
 
-def _write_scan(folder: Path, s: dict, sc: dict, defects: list[dict], t: np.ndarray, sweep: np.ndarray,
-                echo: np.ndarray, h0: float, sigma: float, rng: np.random.Generator) -> dict[str, Any]:
-    acq = sc["acquisition"]
-    folder.mkdir(parents=True, exist_ok=True)
+@dataclass
+class _Layout:
+    """Where a simulated scan's points and targets are: bundle coordinates, drawing frame, incidence."""
+
+    rows: np.ndarray
+    cols: np.ndarray
+    scanner: np.ndarray  # bundle coordinates: metres (surface) or degrees (angles)
+    drawing: np.ndarray
+    cos_incidence: np.ndarray
+    target_scanner: np.ndarray  # true scanner coordinates of the targets
+    target_drawing: np.ndarray
+
+
+def _rotation(deg: float) -> np.ndarray:
+    th = math.radians(deg)
+    return np.array([[math.cos(th), -math.sin(th)], [math.sin(th), math.cos(th)]])
+
+
+def _surface_layout(s: dict, acq: dict) -> _Layout:
+    """A regular grid on the surface; the head stands below the scan centre at the standoff."""
     sp = acq["spacing_m"]
     w, h = s["size"]
     ncol, nrow = int(round(w / sp)) + 1, int(round(h / sp)) + 1
     offset = np.array([1.5, 0.8])  # the scanner's own origin is not the scan centre
     rr, cc = np.mgrid[0:nrow, 0:ncol]
     local = np.column_stack([(cc.ravel() * sp - w / 2), (rr.ravel() * sp - h / 2)])
-    th = math.radians(s["scanner_rotation_deg"])
-    rot = np.array([[math.cos(th), -math.sin(th)], [math.sin(th), math.cos(th)]])
-    drawing = np.asarray(s["center"]) + local @ rot.T
-    scanner = local + offset
-    n_pts = len(local)
+    rot = _rotation(s["scanner_rotation_deg"])
+    standoff = acq["head_distance_m"]
+    corners = np.array([[-w / 2 + 0.05, -h / 2 + 0.05], [w / 2 - 0.05, -h / 2 + 0.05],
+                        [w / 2 - 0.05, h / 2 - 0.05], [-w / 2 + 0.05, h / 2 - 0.05]])
+    return _Layout(rr.ravel(), cc.ravel(), local + offset, np.asarray(s["center"]) + local @ rot.T,
+                   standoff / np.sqrt(standoff**2 + np.sum(local**2, axis=1)),
+                   corners + offset, np.asarray(s["center"]) + corners @ rot.T)
 
-    inside = [d for d in defects if _contains(s, d)]
+
+def _angles_layout(s: dict, acq: dict) -> _Layout:
+    """A grid of mirror angles; beams from the head onto the soffit, whose normal is tilted by
+    ``tilt_deg`` from the boresight (an oblique scan).  The demo's own ray geometry."""
+    (ax0, ax1), (ay0, ay1) = s["angles_deg"]
+    step = s["angle_step_deg"]
+    axs = np.arange(ax0, ax1 + step / 2, step)
+    ays = np.arange(ay0, ay1 + step / 2, step)
+    rr, cc = np.mgrid[0 : len(ays), 0 : len(axs)]
+    angles = np.column_stack([axs[cc.ravel()], ays[rr.ravel()]])
+    tilt = math.radians(s["tilt_deg"])
+    rx = np.array([[1, 0, 0], [0, math.cos(tilt), -math.sin(tilt)], [0, math.sin(tilt), math.cos(tilt)]])
+    n, e1, e2 = rx[:, 2], rx[:, 0], rx[:, 1]
+    p0 = np.array([0.0, 0.0, s["standoff_m"]])
+
+    def hit(a: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        d = np.column_stack([np.tan(np.radians(a[:, 0])), np.tan(np.radians(a[:, 1])), np.ones(len(a))])
+        p = d * ((p0 @ n) / (d @ n))[:, None] - p0
+        return np.column_stack([p @ e1, p @ e2]), np.abs(d @ n) / np.linalg.norm(d, axis=1)
+
+    local, cos = hit(angles)
+    rot = _rotation(s["scanner_rotation_deg"])
+    # six targets round the edge of the scanned patch, located on the surface and seen back as angles
+    lo, hi = local.min(axis=0), local.max(axis=0)
+    mid = 0.5 * (lo + hi)
+    inset = 0.1
+    t_local = np.array([[lo[0] + inset, lo[1] + inset], [hi[0] - inset, lo[1] + inset], [hi[0] - inset, mid[1]],
+                        [hi[0] - inset, hi[1] - inset], [lo[0] + inset, hi[1] - inset], [lo[0] + inset, mid[1]]])
+    pts = p0 + t_local[:, :1] * e1 + t_local[:, 1:] * e2
+    t_angles = np.degrees(np.column_stack([np.arctan(pts[:, 0] / pts[:, 2]), np.arctan(pts[:, 1] / pts[:, 2])]))
+    return _Layout(rr.ravel(), cc.ravel(), angles, np.asarray(s["center"]) + local @ rot.T, cos,
+                   t_angles, np.asarray(s["center"]) + t_local @ rot.T)
+
+
+def _write_scan(folder: Path, s: dict, sc: dict, defects: list[dict], t: np.ndarray, sweep: np.ndarray,
+                echo: np.ndarray, h0: float, sigma: float, rng: np.random.Generator) -> dict[str, Any]:
+    acq = sc["acquisition"]
+    folder.mkdir(parents=True, exist_ok=True)
+    kind = s.get("kind", "surface")
+    lay = _angles_layout(s, acq) if kind == "angles" else _surface_layout(s, acq)
+    drawing = lay.drawing
+    n_pts = len(drawing)
+
+    inside = [d for d in defects if _covers(drawing, d)]
     coeffs = np.zeros((n_pts, len(inside)))
     for k, d in enumerate(inside):
         coeffs[:, k] = clamped_mode_shape(_ell_radius(drawing, d))
     waves = np.stack([d["response"] for d in inside]) if inside else np.zeros((0, len(t)))
     rec = h0 * (sweep[None, :] + coeffs @ waves)
-    # the beam sees the normal motion times cos θ; the head stands below the scanner's origin + offset
-    standoff = acq["head_distance_m"]
-    rec *= (standoff / np.sqrt(standoff**2 + np.sum(local**2, axis=1)))[:, None]
+    rec *= lay.cos_incidence[:, None]  # the beam sees the normal motion times cos θ
     rec += h0 * echo[None, :] * rng.uniform(0.8, 1.2, size=(n_pts, 1))
     rec += rng.normal(0.0, sigma, size=rec.shape)
     valid = np.ones(n_pts, dtype=int)
@@ -217,24 +277,26 @@ def _write_scan(folder: Path, s: dict, sc: dict, defects: list[dict], t: np.ndar
     vscale = 1000.0 if s["velocity_unit"] == "mm/s" else 1.0
     np.save(folder / "records.npy", (rec * vscale).astype(np.float32))
 
-    uscale = 1000.0 if s["unit"] == "mm" else 1.0
-    lines = ["id,row,col,x,y,valid,signal_level"]
+    uscale = 1000.0 if s.get("unit") == "mm" else 1.0
+    cx, cy = ("ax", "ay") if kind == "angles" else ("x", "y")
+    lines = [f"id,row,col,{cx},{cy},valid,signal_level"]
     for i in range(n_pts):
-        x, y = scanner[i] * uscale
-        lines.append(f"P{rr.ravel()[i]:03d}-{cc.ravel()[i]:03d},{rr.ravel()[i]},{cc.ravel()[i]},{x:.4f},{y:.4f},{valid[i]},{level[i]:.3f}")
+        x, y = lay.scanner[i] * uscale
+        lines.append(f"P{lay.rows[i]:03d}-{lay.cols[i]:03d},{lay.rows[i]},{lay.cols[i]},{x:.5f},{y:.5f},{valid[i]},{level[i]:.3f}")
     (folder / "points.csv").write_text("\n".join(lines) + "\n")
 
-    corners = np.array([[-w / 2 + 0.05, -h / 2 + 0.05], [w / 2 - 0.05, -h / 2 + 0.05], [w / 2 - 0.05, h / 2 - 0.05], [-w / 2 + 0.05, h / 2 - 0.05]])
     targets = []
-    for k, loc in enumerate(corners, start=1):
-        true_d = np.asarray(s["center"]) + rot @ loc
-        seen = (loc + offset + rng.normal(0, acq["target_noise_m"], 2)) * uscale
+    noise = acq["target_angle_noise_deg"] if kind == "angles" else acq["target_noise_m"]
+    for k, (true_s, true_d) in enumerate(zip(lay.target_scanner, lay.target_drawing), start=1):
+        seen = (true_s + rng.normal(0, noise, 2)) * uscale
         surveyed = true_d + rng.normal(0, acq["survey_noise_m"], 2)
         name = f"{s['id'].replace('-', '')}-T{k}"
         targets.append(
-            f'[[targets]]\nname = "{name}"\nscanner = [{seen[0]:.4f}, {seen[1]:.4f}]\n'
+            f'[[targets]]\nname = "{name}"\nscanner = [{seen[0]:.5f}, {seen[1]:.5f}]\n'
             f"drawing = [{surveyed[0]:.4f}, {surveyed[1]:.4f}]\n"
         )
+    coords = f'kind = "angles"' if kind == "angles" else f'kind = "surface"\nunit = "{s["unit"]}"'
+    head = s.get("standoff_m", acq["head_distance_m"])
     manifest = f'''format = "scan-bundle/1"
 
 [scan]
@@ -244,8 +306,7 @@ surveyed = {s['surveyed'].strftime('%Y-%m-%dT%H:%M:%SZ')}
 note = "demo scan generated by overlay demo"
 
 [coordinates]
-kind = "surface"
-unit = "{s['unit']}"
+{coords}
 
 [records]
 sample_rate_hz = {acq['sample_rate_hz']}
@@ -254,7 +315,7 @@ trigger_s = {acq['trigger_s']}
 
 [geometry]
 source_distance_m = {acq['source_distance_m']}
-head_distance_m = {acq['head_distance_m']}
+head_distance_m = {head}
 air_temperature_c = {acq['air_temperature_c']}
 
 [band]
@@ -262,7 +323,7 @@ hz = [{acq['band_hz'][0]}, {acq['band_hz'][1]}]
 
 ''' + "\n".join(targets)
     (folder / "scan.toml").write_text(manifest)
-    return {"id": s["id"], "element": s["element"], "defects": [d["id"] for d in inside],
+    return {"id": s["id"], "element": s["element"], "kind": kind, "defects": [d["id"] for d in inside],
             "n_points": n_pts, "dropouts": int(n_drop), "nan_points": int(acq["nan_points"])}
 
 
@@ -274,12 +335,11 @@ def _ell_radius(xy: np.ndarray, d: dict) -> np.ndarray:
     return np.sqrt((u / d["semi_axes"][0]) ** 2 + (v / d["semi_axes"][1]) ** 2)
 
 
-def _contains(s: dict, d: dict) -> bool:
-    th = math.radians(-s["scanner_rotation_deg"])
-    dx, dy = d["center"][0] - s["center"][0], d["center"][1] - s["center"][1]
-    u = dx * math.cos(th) - dy * math.sin(th)
-    v = dx * math.sin(th) + dy * math.cos(th)
-    return abs(u) < s["size"][0] / 2 and abs(v) < s["size"][1] / 2
+def _covers(drawing: np.ndarray, d: dict) -> bool:
+    """The defect's centre lies inside the scanned points' bounding box (with a margin of its size)."""
+    lo, hi = drawing.min(axis=0), drawing.max(axis=0)
+    c, r = np.asarray(d["center"]), max(d["semi_axes"])
+    return bool(np.all(c - r > lo) and np.all(c + r < hi))
 
 
 def write_asbuilt_dxf(path: Path, st: dict) -> None:

@@ -4,9 +4,13 @@ from __future__ import annotations
 
 import warnings
 
+import numpy as np
 import pyogrio
+import pyproj
+import shapely
 
 from .errors import SiteFileError
+from .frames import crs_transformer
 from .transforms import Similarity
 from .site import Elements
 
@@ -27,7 +31,12 @@ def element_areas(elements: Elements, crs: object, to_map: Similarity | None, dr
             f"no field {elements.id_field!r}; the layer has {', '.join(c for c in frame.columns if c != 'geometry')}",
             source=src, field="elements.id_field")
     if crs is not None and frame.crs is not None and not frame.crs.equals(crs):
-        frame = frame.to_crs(crs)
+        # through our own check: never a silent ballpark datum shift
+        lonlat = pyproj.Transformer.from_crs(frame.crs, frame.crs.geodetic_crs, always_xy=True).transform(
+            *frame.geometry.union_all().centroid.coords[0])
+        t, _ = crs_transformer(frame.crs, crs, lonlat, source=src)
+        frame = frame.set_geometry(shapely.transform(frame.geometry.values, lambda xy: np.column_stack(t.transform(xy[:, 0], xy[:, 1]))),
+                                   crs=crs)
     elif crs is None or frame.crs is None:
         warnings.warn(f"{src}: element layer or map frame has no CRS; areas taken as they are", stacklevel=2)
     k = 1.0 if to_map is None else (to_map.scale / drawing_unit_m) ** 2

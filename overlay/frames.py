@@ -68,3 +68,46 @@ def transform_xy(xy: np.ndarray, src: Any, dst: Any) -> np.ndarray:
     t = pyproj.Transformer.from_crs(to_crs(src), to_crs(dst), always_xy=True)
     x, y = t.transform(np.asarray(xy)[..., 0], np.asarray(xy)[..., 1], errcheck=True)
     return np.stack([x, y], axis=-1)
+
+
+def crs_transformer(src: Any, dst: Any, lonlat: tuple[float, float] | None = None, *,
+                    source: str | None = None) -> tuple[pyproj.Transformer, float]:
+    """The transformation from ``src`` to ``dst`` that PROJ rates best for the site, and its accuracy (m).
+
+    Refuses a ballpark transformation (datum shift unknown to PROJ, off by up to
+    hundreds of metres) instead of applying it silently; warns when the best
+    operation needs a grid that is not installed, or when the accuracy is unknown.
+    """
+    a, b = to_crs(src, source=source), to_crs(dst, source=source)
+    aoi = None
+    if lonlat is not None:
+        lon, lat = lonlat
+        aoi = pyproj.aoi.AreaOfInterest(lon - 0.01, lat - 0.01, lon + 0.01, lat + 0.01)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # pyproj warns about missing grids; we say it ourselves below
+        group = pyproj.transformer.TransformerGroup(a, b, always_xy=True, area_of_interest=aoi)
+    if not group.transformers:
+        raise CRSCheckError(f"no transformation from {a.to_string()} to {b.to_string()} is available", source=source)
+    t = group.transformers[0]
+    label = f"{a.to_string()} -> {b.to_string()}"
+    if "ballpark" in t.description.lower():
+        raise CRSCheckError(
+            f"only a ballpark transformation {label} is available ({t.description}); it can be off by hundreds of "
+            "metres — install the PROJ grids for it or give the layer in the map CRS", source=source, field="crs")
+    if not group.best_available:
+        warnings.warn(f"{label}: the best transformation needs a grid that is not installed; using "
+                      f"'{t.description}' (accuracy {t.accuracy:g} m)", RegistrationWarning, stacklevel=2)
+    elif t.accuracy is None or t.accuracy < 0:
+        warnings.warn(f"{label}: accuracy of '{t.description}' is unknown", RegistrationWarning, stacklevel=2)
+    return t, float(t.accuracy if t.accuracy is not None else -1.0)
+
+
+def site_scale_factor(crs: pyproj.CRS, site_xy: np.ndarray) -> tuple[float, float]:
+    """(point scale k, areal scale) of the map projection at the site's centre.
+
+    A surface area of A m² shows as A·areal_scale in the map CRS.
+    """
+    c = np.mean(np.atleast_2d(site_xy), axis=0)
+    lon, lat = pyproj.Transformer.from_crs(crs, crs.geodetic_crs, always_xy=True).transform(c[0], c[1])
+    f = pyproj.Proj(crs).get_factors(lon, lat)
+    return float(math.sqrt(f.meridional_scale * f.parallel_scale)), float(f.areal_scale)

@@ -22,9 +22,10 @@ from .cautions import CAUTIONS
 from .contour import level_polygons
 from .elements import element_areas
 from .energy import Reference, reference_energy, ver_db
-from .errors import BundleError, BundleWarning, RegistrationError, SignalError
+from .errors import BundleError, SignalError, SiteFileError
 from .fits import Fit, check_fit, fit_points
-from .frames import UNIT_TO_M, check_map_crs, from_placement, to_crs
+from .frames import UNIT_TO_M, check_map_crs, from_placement, site_scale_factor, to_crs
+from .stations import Alignment
 from .transforms import Similarity, Transform
 from .beam import normal_energy
 from .gate import Gate, make_gate, window_from_geometry
@@ -90,6 +91,7 @@ class RunResult:
     cautions: tuple[str, ...] = CAUTIONS
     warnings: list[str] = field(default_factory=list)
     element_areas: dict[str, float] = field(default_factory=dict)
+    map_scale: tuple[float, float] | None = None  # (point scale k, areal scale) of the map CRS at the site
 
     @property
     def zones(self) -> list[Zone]:
@@ -358,6 +360,22 @@ def _quality_checks(scan: Scan, finite: np.ndarray, snr: np.ndarray, site: Site)
     return checks
 
 
+def locate_zones(zones: list[Zone], site: Site, to_map: Similarity | None) -> None:
+    """Station and offset of each zone's centroid, and its station range, along the site's alignment."""
+    spec = site.alignment
+    assert spec is not None
+    if spec.frame == "map" and to_map is None:
+        raise SiteFileError("alignment in the map frame needs a [map] placement", source=site.path, field="alignment.frame")
+    unit = 1.0 if spec.frame == "map" else UNIT_TO_M[site.drawing_unit]
+    line = Alignment.from_points(list(spec.points), spec.start_station_m)
+    move = (lambda g: to_map.apply_geometry(g)) if spec.frame == "map" else (lambda g: g)  # type: ignore[union-attr]
+    for z in zones:
+        c = move(z.contour.centroid)
+        st, off = line.station_offset(np.array([[c.x, c.y]]), unit)
+        z.station_m, z.offset_m = float(st[0]), float(off[0])
+        z.station_from_m, z.station_to_m = line.station_range(move(z.contour), unit)
+
+
 def map_placement(site: Site, site_xy: np.ndarray) -> tuple[Similarity | None, pyproj.CRS | None, Fit | None]:
     """Drawing → map transform and CRS from the site file, checked with pyproj."""
     m = site.map
@@ -405,8 +423,12 @@ def run_site(
             raise BundleError(f"scan id(s) {', '.join(sorted(dup))} used by more than one bundle", source=site.path)
         corners = np.concatenate([np.asarray(r.extent.exterior.coords) for r in results if not r.extent.is_empty] or [np.zeros((0, 2))])
         to_map, crs, map_fit = map_placement(site, corners)
+        scale = site_scale_factor(crs, to_map.apply(corners)) if crs is not None and to_map is not None and len(corners) else None
+        if site.alignment is not None:
+            locate_zones([z for r in results for z in r.zones], site, to_map)
         areas = element_areas(site.elements, crs, to_map, UNIT_TO_M[site.drawing_unit]) if site.elements else {}
     for w in seen:
         caught.append(str(w.message))
         warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
-    return RunResult(site, results, to_map, crs, map_fit, started, warnings=caught, element_areas=areas)
+    return RunResult(site, results, to_map, crs, map_fit, started, warnings=caught, element_areas=areas,
+                     map_scale=scale)

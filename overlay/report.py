@@ -30,6 +30,15 @@ def run_report(result: "RunResult") -> str:
     if result.to_map is not None:
         t = result.to_map
         out.append(f"drawing -> map: scale {t.scale:.9f}, rotation {t.rotation_deg:.6f} deg")
+    if result.map_scale is not None:
+        k, areal = result.map_scale
+        placed = result.to_map.scale / result.unit_m if result.to_map is not None else 1.0
+        out.append(f"map projection at the site: point scale {k:.6f}, areal scale {areal:.6f} (an area measured in the "
+                   f"CRS is the ground area x {areal:.6f} when the placement carries the projection scale; this "
+                   f"placement's scale is {placed:.6f}); areas in this report are surface m2")
+    if site.alignment is not None:
+        a = site.alignment
+        out.append(f"alignment: {len(a.points)} vertices in the {a.frame} frame, start station {a.start_station_m:g} m")
     if result.map_fit is not None:
         out += ["drawing -> map fit from monuments:"] + ["  " + line for line in result.map_fit.report("m")]
     for s in result.scans:
@@ -56,12 +65,12 @@ def run_report(result: "RunResult") -> str:
     if not result.zones:
         out.append("  none above the lowest class level")
     out.append(f"  {'zone':<20} {'element':<12} {'class':<9} {'area m2':>8} {'outline':>8} {'VERmax':>6} "
-               f"{'peak Hz':>7} {'depth mm':>11} {'conf':>5}")
+               f"{'peak Hz':>7} {'depth mm':>11} {'conf':>5} {'station m':>10} {'offset m':>8}")
     for z in result.zones:
         depth = f"{z.depth_low_m * 1e3:.0f}-{z.depth_high_m * 1e3:.0f}" if z.depth_low_m == z.depth_low_m else "-"
         out.append(
             f"  {z.zone_id:<20} {z.element:<12} {z.class_name:<9} {z.area_m2:8.3f} {z.outline_area_m2:8.3f} "
-            f"{z.ver_max_db:6.1f} {z.peak_hz:7.0f} {depth:>11} {z.confidence:5.2f}"
+            f"{z.ver_max_db:6.1f} {z.peak_hz:7.0f} {depth:>11} {z.confidence:5.2f} {z.station_m:10.2f} {z.offset_m:8.2f}"
         )
     rows = [r for r in quantity_rows(result) if r["row_kind"] == "element_total"]
     if rows:

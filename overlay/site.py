@@ -61,6 +61,15 @@ class Elements:
 
 
 @dataclass(frozen=True)
+class AlignmentSpec:
+    """A reference line for stations: vertices in the drawing or map frame, and its start station."""
+
+    points: tuple[tuple[float, float], ...]
+    frame: str = "drawing"
+    start_station_m: float = 0.0
+
+
+@dataclass(frozen=True)
 class ScanEntry:
     """One [[scans]] entry: the bundle and what the site file adds to it."""
 
@@ -97,6 +106,7 @@ class Site:
     footprint: str = "aligned"
     basis: str = "outline"
     elements: Elements | None = None
+    alignment: AlignmentSpec | None = None
     basename: str = "overlay"
     formats: tuple[str, ...] = DEFAULT_FORMATS
 
@@ -146,6 +156,7 @@ def read_site(path: str | Path) -> Site:
     footprint = rp.choice("footprint", ("aligned", "rotated"), default="aligned")
     basis = rp.choice("basis", ("outline", "contour"), default="outline")
     elements = _elements(doc, path)
+    alignment = _alignment(doc)
 
     cps: dict[str, tuple[float, float]] = {}
     cp = doc.table_of("control_points")
@@ -195,6 +206,7 @@ def read_site(path: str | Path) -> Site:
         footprint=footprint,
         basis=basis,
         elements=elements,
+        alignment=alignment,
         basename=basename,
         formats=tuple(formats),
     )
@@ -296,6 +308,22 @@ def _elements(doc: Fields, path: Path) -> Elements | None:
     out = Elements(full, e.string("layer"), e.string("id_field", "asset_id") or "asset_id")
     _warn_unknown(e)
     return out
+
+
+def _alignment(doc: Fields) -> AlignmentSpec | None:
+    a = doc.table_of("alignment")
+    if a is None:
+        return None
+    pts = a.raw("points")
+    ok = isinstance(pts, list) and len(pts) >= 2 and all(
+        isinstance(p, list) and len(p) == 2 and all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in p)
+        for p in pts)
+    if not ok:
+        raise a.fail("points", "must be a polyline: a list of at least 2 [x, y] pairs")
+    spec = AlignmentSpec(tuple((float(x), float(y)) for x, y in pts), a.choice("frame", ("drawing", "map"), default="drawing"),
+                         a.number("start_station_m", 0.0) or 0.0)
+    _warn_unknown(a)
+    return spec
 
 
 def _region(t: Fields) -> tuple[tuple[float, float], ...] | None:

@@ -191,3 +191,18 @@ def test_scattered_points_without_row_col_run_end_to_end(tmp_path: Path) -> None
     result = run_site(read_site(write_site(tmp_path, ["S-1"])))
     (watch,) = [z for z in result.zones if z.class_name == "watch"]
     assert watch.area_m2 == pytest.approx(np.pi * 0.07, rel=0.02)
+
+
+def test_collinear_targets_for_an_affine_fit_exit_4_nothing_written(tmp_path: Path, capsys: pytest.CaptureFixture) -> None:
+    folder = _bump_bundle(tmp_path / "S-1")
+    toml = folder / "scan.toml"
+    text = toml.read_text()
+    text = text[: text.index("[[targets]]")] + "".join(
+        f'[[targets]]\nname = "L{k}"\nscanner = [{0.2 * k}, {0.1 * k}]\ndrawing = [{10 + 0.2 * k}, {20 + 0.1 * k}]\n\n' for k in range(4))
+    toml.write_text(text)
+    site = write_site(tmp_path, ["S-1"], extra="")
+    site.write_text(site.read_text().replace("tolerance = 0.01", 'tolerance = 0.01\nmodel = "affine"'))
+    assert main(["run", str(site), "--out", str(tmp_path / "out")]) == 4
+    err = capsys.readouterr().err
+    assert "L0, L1, L2, L3 are (nearly) collinear" in err and "S-1: targets:" in err
+    assert _files(tmp_path / "out") == []

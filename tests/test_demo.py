@@ -153,3 +153,33 @@ def test_element_shares_from_the_asset_register(demo: dict) -> None:
     areas = demo["result"].element_areas
     # the asset GeoPackage's soffit panels: span 1 bay 2 is 14.0 m × 2.6 m (scenario.toml)
     assert areas["KLO2-S1-B2"] == pytest.approx(36.4, rel=1e-6)
+
+
+def test_zones_land_within_a_quarter_spacing_and_the_angle_scan_is_projective(demo: dict) -> None:
+    # issue 5: every detectable defect's zone centroid within a quarter of the grid spacing of the truth
+    quarter = demo["truth"]["spacing_m"] / 4
+    for d in _defects(demo):
+        if d["detectable"]:
+            z = _lowest_zone(demo, d)
+            c = z.contour.centroid
+            assert np.hypot(c.x - d["center"][0], c.y - d["center"][1]) < quarter, d["id"]
+    oblique = next(s for s in demo["result"].scans if s.kind == "angles")
+    assert oblique.fit.model == "projective" and "tangents" in oblique.fit_describe
+    assert oblique.incidence.startswith("applied") and np.nanmax(oblique.incidence_deg) > 35
+    assert np.isfinite(oblique.fit.loo).all()
+    assert any(d["scan_id"] == oblique.scan_id and d["detectable"] for d in _defects(demo))
+
+
+def test_fit_reports_are_in_the_run_outputs(demo: dict, tmp_path) -> None:
+    import pyogrio
+
+    from overlay.outputs import write_outputs
+
+    paths = write_outputs(demo["result"], tmp_path)
+    report = paths["report"].read_text()
+    assert "projective on mirror-angle tangents" in report and "leave-one-out" in report
+    runs = pyogrio.read_dataframe(paths["gpkg"], layer="runs")
+    assert set(runs["fit_model"]) == {"similarity", "projective"}
+    assert {"fit_params", "fit_rms", "fit_max", "fit_tolerance", "fit_passed", "fit_override"} <= set(runs.columns)
+    targets = pyogrio.read_dataframe(paths["gpkg"], layer="targets")
+    assert targets["leave_one_out_m"].notna().all() and (targets["residual_m"] < 0.01).all()

@@ -131,3 +131,62 @@ def test_map_crs_must_be_projected_metric_and_cover_site() -> None:
     check_map_crs(to_crs(25832), np.array([[512345.0, 5712468.0]]))  # inside 6°E..12°E
     with pytest.warns(RegistrationWarning, match="outside the area of use of EPSG:25832"):
         check_map_crs(to_crs(25832), np.array([[-2500000.0, 5712468.0]]))
+
+
+def test_gn72_lambert_conic_2sp_through_our_crs_path() -> None:
+    # EPSG Guidance Note 7-2, method 9802, NAD27 / Texas South Central (EPSG:32040) from EPSG:4267:
+    # 28°30'N, 96°W → E 2963503.91, N 254759.80 US survey feet (0.01 ftUS) (CHECKS.md) — a foot mix-up
+    # would show as a factor 0.3048
+    e, n = transform_xy(np.array([-96.0, 28.5]), "EPSG:4267", "EPSG:32040")
+    assert e == pytest.approx(2963503.91, abs=0.01) and n == pytest.approx(254759.80, abs=0.01)
+
+
+def test_utm_scale_factor_at_the_central_meridian() -> None:
+    # UTM: k0 = 0.9996 on the central meridian (definition of the projection; zone 32 → 9°E)
+    from overlay.frames import site_scale_factor
+
+    xy = transform_xy(np.array([[9.0, 51.0]]), "EPSG:4258", "EPSG:25832")
+    k, areal = site_scale_factor(to_crs(25832), xy)
+    assert k == pytest.approx(0.9996, abs=1e-7) and areal == pytest.approx(0.9996**2, abs=1e-7)
+
+
+def test_transformations_are_exact_reported_or_refused() -> None:
+    from overlay.frames import crs_transformer
+
+    t, acc = crs_transformer("EPSG:25832", "EPSG:25833", (12.0, 51.0))
+    assert acc == 0.0  # same datum: a conversion, exact
+    t, acc = crs_transformer("EPSG:25832", "EPSG:23032", (9.0, 51.0))
+    assert acc > 0  # a datum shift with its stated accuracy
+    with pytest.raises(CRSCheckError, match="only a ballpark transformation"):
+        crs_transformer("+proj=longlat +ellps=clrk80 +no_defs", "EPSG:4326", (9.0, 51.0))
+
+
+def test_millimetre_drawings_round_trip_exactly() -> None:
+    # 1 mm = 0.001 m exactly; placing a mm drawing and a m drawing of the same point gives the same map point
+    p_mm = from_placement((500000.0, 5700000.0), 63.5, 1.0, "mm").apply(np.array([12345.0, 6789.0]))
+    p_m = from_placement((500000.0, 5700000.0), 63.5, 1.0, "m").apply(np.array([12.345, 6.789]))
+    np.testing.assert_allclose(p_mm, p_m, rtol=0, atol=1e-9)
+    from overlay.frames import UNIT_TO_M
+
+    x = np.array([0.001, 1.0, 123456.789])
+    assert np.array_equal((x / UNIT_TO_M["mm"]) * UNIT_TO_M["mm"], x)
+
+
+def test_station_offset_straight_and_arc() -> None:
+    from overlay.stations import Alignment
+
+    # straight line (0,0)→(100,0), start station 1000: (30, 5) is at station 1030, 5 m left (hand-worked)
+    line = Alignment.from_points([(0.0, 0.0), (100.0, 0.0)], 1000.0)
+    st, off = line.station_offset(np.array([[30.0, 5.0], [70.0, -2.0]]))
+    np.testing.assert_allclose(st, [1030.0, 1070.0], atol=1e-9)
+    np.testing.assert_allclose(off, [5.0, -2.0], atol=1e-9)
+    # quarter circle of radius 100 m anticlockwise from (100, 0): a point at 30° and radius 95 m lies at
+    # station 100·π/6 = 52.3599 m and 5 m left (towards the centre) (hand-worked); the arc is densified
+    th = np.linspace(0, np.pi / 2, 4001)
+    arc = Alignment.from_points(list(zip(100 * np.cos(th), 100 * np.sin(th))))
+    p = 95 * np.array([[np.cos(np.pi / 6), np.sin(np.pi / 6)]])
+    st, off = arc.station_offset(p)
+    assert st[0] == pytest.approx(100 * np.pi / 6, abs=1e-3) and off[0] == pytest.approx(5.0, abs=1e-4)
+    # mm drawing units: the same point in mm gives metres
+    st_mm, off_mm = Alignment.from_points([(0.0, 0.0), (100000.0, 0.0)]).station_offset(np.array([[30000.0, 5000.0]]), 0.001)
+    assert (st_mm[0], off_mm[0]) == pytest.approx((30.0, 5.0))

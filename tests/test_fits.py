@@ -1,0 +1,150 @@
+"""Scanner → drawing fits: EPSG Guidance Note 7-2 worked examples, projective invariants, a tilted
+plane scanned by angles, leave-one-out, degenerate target sets."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from overlay.errors import RegistrationError
+from overlay.fits import fit_points
+from overlay.registration import cos_incidence_from_homography, pinhole_to_surface, tangents
+from overlay.transforms import Affine, Projective
+
+# EPSG Guidance Note 7-2, method 9624 (affine parametric), Jamaica 1875 / Old Grid (ft) →
+# JAD69 / Jamaica National Grid (m) (CHECKS.md)
+JAM = Affine(82357.457, 0.304794369, 0.000015417425, 28091.324, -0.000015417425, 0.304794369)
+
+
+def test_gn72_affine_worked_example() -> None:
+    # (553900.00, 482500.00) → (251190.497, 175146.067), 1 mm
+    x, y = JAM.apply(np.array([553900.0, 482500.0]))
+    assert x == pytest.approx(251190.497, abs=1e-3) and y == pytest.approx(175146.067, abs=1e-3)
+
+
+def test_affine_fit_recovers_all_six_gn72_parameters() -> None:
+    src = np.array([[553900.0, 482500.0], [560000.0, 480000.0], [556000.0, 490000.0], [550000.0, 485000.0], [558000.0, 488000.0]])
+    fit = fit_points("affine", src, JAM.apply(src), list("ABCDE"))
+    for got, want in zip(fit.transform.params().values(), JAM.params().values()):
+        assert got == pytest.approx(want, rel=1e-9, abs=1e-9 * abs(JAM.a0))
+    assert fit.rms < 1e-6
+
+
+def test_affine_noisy_targets_within_noise() -> None:
+    rng = np.random.default_rng(1)
+    truth = Affine(10.0, 1.001, 0.02, -5.0, -0.015, 0.998)
+    src = rng.uniform(0, 4, (10, 2))
+    dst = truth.apply(src) + rng.normal(0, 0.001, (10, 2))
+    fit = fit_points("affine", src, dst, [f"T{i}" for i in range(10)])
+    grid = rng.uniform(0, 4, (50, 2))
+    assert np.max(np.hypot(*(fit.transform.apply(grid) - truth.apply(grid)).T)) < 0.002
+    assert 0.0003 < fit.rms < 0.002
+
+
+def _heckbert_square_to_quad(q: np.ndarray) -> np.ndarray:
+    """Heckbert 1989, 'Fundamentals of Texture Mapping', square → quadrilateral in closed form (from memory)."""
+    (x0, y0), (x1, y1), (x2, y2), (x3, y3) = q
+    sx, sy = x0 - x1 + x2 - x3, y0 - y1 + y2 - y3
+    dx1, dx2, dy1, dy2 = x1 - x2, x3 - x2, y1 - y2, y3 - y2
+    den = dx1 * dy2 - dx2 * dy1
+    g = (sx * dy2 - dx2 * sy) / den
+    h = (dx1 * sy - sx * dy1) / den
+    a, b, c = x1 - x0 + g * x1, x3 - x0 + h * x3, x0
+    d, e, f = y1 - y0 + g * y1, y3 - y0 + h * y3, y0
+    return np.array([[a, b, c], [d, e, f], [g, h, 1.0]])
+
+
+def test_projective_reproduces_four_targets_and_matches_heckbert() -> None:
+    square = np.array([[0.0, 0.0], [1.0, 0.0], [1.0, 1.0], [0.0, 1.0]])
+    quad = np.array([[2.0, 1.0], [5.0, 1.5], [4.5, 4.0], [1.5, 3.0]])
+    fit = fit_points("projective", square, quad, list("ABCD"))
+    assert np.max(np.abs(fit.residuals)) < 1e-9
+    np.testing.assert_allclose(fit.transform.matrix, _heckbert_square_to_quad(quad), atol=1e-9)
+    assert np.isnan(fit.loo).all()  # four points leave none to spare
+
+
+def test_projective_reduces_to_affine() -> None:
+    truth = Affine(3.0, 0.9, 0.1, -1.0, -0.05, 1.1)
+    src = np.array([[0.0, 0.0], [2.0, 0.1], [2.1, 1.9], [0.1, 2.0], [1.0, 1.0], [1.7, 0.4]])
+    fit = fit_points("projective", src, truth.apply(src), list("ABCDEF"))
+    h = fit.transform.params()
+    assert abs(h["h31"]) < 1e-9 and abs(h["h32"]) < 1e-9
+    assert (h["h11"], h["h12"], h["h13"]) == pytest.approx((0.9, 0.1, 3.0), abs=1e-9)
+
+
+def _tilted_scan(tilt_deg: float = 25.0, standoff: float = 5.0):
+    """A wall tilted about the head's x axis, scanned on a grid of mirror angles; its true surface metres."""
+    ax, ay = np.meshgrid(np.linspace(-12, 12, 25), np.linspace(-10, 10, 21))
+    angles = np.column_stack([ax.ravel(), ay.ravel()])
+    surface, cos = pinhole_to_surface(angles, standoff, (tilt_deg, 0.0))
+    return angles, surface, cos
+
+
+def test_projective_fit_of_a_tilted_plane_scanned_by_angles_recovers_truth_to_1mm() -> None:
+    angles, surface, _ = _tilted_scan()
+    rng = np.random.default_rng(2)
+    # eight targets round the edge of the scan (corners and mid-sides of the 21 × 25 angle grid),
+    # angles read to 0.002°, surveyed to 0.5 mm
+    rc = [(0, 0), (0, 12), (0, 24), (10, 24), (20, 24), (20, 12), (20, 0), (10, 0)]
+    pick = np.array([r * 25 + c for r, c in rc])
+    seen = angles[pick] + rng.normal(0, 0.002, (8, 2))
+    surveyed = surface[pick] + rng.normal(0, 0.0005, (8, 2))
+    fit = fit_points("projective", tangents(seen), surveyed, [f"T{i}" for i in range(8)])
+    err = np.hypot(*(fit.transform.apply(tangents(angles)) - surface).T)
+    assert err.max() < 0.001
+    # exact targets → exact map
+    exact = fit_points("projective", tangents(angles[pick]), surface[pick], [f"T{i}" for i in range(8)])
+    assert np.hypot(*(exact.transform.apply(tangents(angles)) - surface).T).max() < 1e-8
+
+
+def test_incidence_from_the_fitted_plane_pose() -> None:
+    angles, surface, cos = _tilted_scan()
+    fit = fit_points("projective", tangents(angles[::37]), surface[::37], [f"T{i}" for i in range(len(angles[::37]))])
+    got = cos_incidence_from_homography(fit.transform, tangents(angles), 1.0)
+    np.testing.assert_allclose(got, cos, atol=1e-6)
+    # on the boresight of a wall tilted 25°, the beam meets it at 25° (hand-worked)
+    centre = np.argmin(np.hypot(*angles.T))
+    assert math.degrees(math.acos(got[centre])) == pytest.approx(25.0, abs=1e-6)
+
+
+def test_pinhole_hand_worked() -> None:
+    # normal wall at 5 m: (45°, 0) hits x = 5·tan 45° = 5 m at 45° incidence; (0, 0) hits the origin
+    xy, cos = pinhole_to_surface(np.array([[45.0, 0.0], [0.0, 0.0]]), 5.0)
+    np.testing.assert_allclose(xy, [[5.0, 0.0], [0.0, 0.0]], atol=1e-12)
+    np.testing.assert_allclose(cos, [math.sqrt(0.5), 1.0], atol=1e-12)
+
+
+def test_leave_one_out_hand_check() -> None:
+    # three targets, similarity: leaving C out, A and B fix the map exactly (identity here), so C's
+    # leave-one-out error is its own offset, 0.03 m (hand-worked)
+    src = np.array([[0.0, 0.0], [1.0, 0.0], [0.0, 1.0]])
+    dst = src.copy()
+    dst[2] += [0.03, 0.0]
+    fit = fit_points("similarity", src, dst, ["A", "B", "C"])
+    assert fit.loo[2] == pytest.approx(0.03, abs=1e-12)
+    assert fit.loo[2] > fit.errors[2]
+
+
+@pytest.mark.parametrize(
+    "model, pts, fragment",
+    [
+        ("similarity", [[0, 0]], "needs at least 2 targets, got 1 (T0)"),
+        ("affine", [[0, 0], [1, 0]], "needs at least 3 targets, got 2 (T0, T1)"),
+        ("affine", [[0, 0], [1, 1], [2, 2.0000001]], "T0, T1, T2 are (nearly) collinear"),
+        ("projective", [[0, 0], [1, 0], [2, 0], [1, 1]], "T0, T1, T2 are collinear"),
+        ("projective", [[0, 0], [1, 0], [1, 0], [0, 1]], "T1 and T2 coincide"),
+    ],
+)
+def test_degenerate_target_sets_name_the_targets(model: str, pts: list, fragment: str) -> None:
+    src = np.array(pts, dtype=float)
+    with pytest.raises(RegistrationError) as info:
+        fit_points(model, src, src + 1.0, [f"T{i}" for i in range(len(src))])
+    assert fragment in str(info.value) and info.value.exit_code == 4
+
+
+def test_projective_equals_affine_form_for_transforms() -> None:
+    p = Projective((2.0, 0.0, 1.0, 0.0, 2.0, -1.0, 0.0, 0.0))
+    np.testing.assert_allclose(p.apply(np.array([[1.0, 1.0]])), [[3.0, 1.0]])
+    assert p.local_scale(np.array([[0.0, 0.0]])) == pytest.approx(2.0)
