@@ -148,3 +148,32 @@ def test_projective_equals_affine_form_for_transforms() -> None:
     p = Projective((2.0, 0.0, 1.0, 0.0, 2.0, -1.0, 0.0, 0.0))
     np.testing.assert_allclose(p.apply(np.array([[1.0, 1.0]])), [[3.0, 1.0]])
     assert p.local_scale(np.array([[0.0, 0.0]])) == pytest.approx(2.0)
+
+
+def test_angle_scan_with_three_targets_goes_through_the_pinhole(tmp_path) -> None:
+    # an angle scan of a wall normal to the boresight at 4 m, three targets: pinhole to surface metres,
+    # then a similarity; a target at (10°, 0) lies 4·tan 10° = 0.7053 m from the boresight (hand-worked)
+    from overlay.bundle import read_bundle
+    from overlay.registration import register
+    from overlay.site import ScanEntry, read_site
+
+    from .conftest import write_site
+
+    folder = tmp_path / "A-1"
+    folder.mkdir()
+    ax, ay = np.meshgrid(np.arange(-10, 10.1, 1.0), np.arange(-8, 8.1, 1.0))
+    lines = ["id,ax,ay,ver_db"] + [f"P{k},{a},{b},1.0" for k, (a, b) in enumerate(zip(ax.ravel(), ay.ravel()))]
+    (folder / "points.csv").write_text("\n".join(lines) + "\n")
+    targets = {"T1": (10.0, 0.0), "T2": (-10.0, 0.0), "T3": (0.0, 8.0)}
+    body = 'format = "scan-bundle/1"\n[scan]\nid = "A-1"\n[coordinates]\nkind = "angles"\n[geometry]\nhead_distance_m = 4.0\n'
+    for name, (a, b) in targets.items():
+        x, y = 4 * math.tan(math.radians(a)), 4 * math.tan(math.radians(b))
+        body += f'[[targets]]\nname = "{name}"\nscanner = [{a}, {b}]\ndrawing = [{100 + x}, {50 + y}]\n'
+    (folder / "scan.toml").write_text(body)
+    site = read_site(write_site(tmp_path, ["A-1"]))
+    reg = register(read_bundle(folder), ScanEntry(folder), site)
+    assert reg.frame == "pinhole" and reg.fit.model == "similarity"
+    assert reg.fit.rms < 1e-9 and reg.fit.transform.scale == pytest.approx(1.0, abs=1e-12)
+    p = reg.to_drawing.apply(reg.working(np.array([[10.0, 0.0]])))
+    assert p[0] == pytest.approx([100 + 0.70531, 50.0], abs=1e-5)
+    assert reg.cos_incidence.min() == pytest.approx(1 / math.sqrt(1 + math.tan(math.radians(10)) ** 2 + math.tan(math.radians(8)) ** 2))
