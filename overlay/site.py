@@ -61,6 +61,31 @@ class Elements:
 
 
 @dataclass(frozen=True)
+class DxfStyle:
+    """How zones are drawn: our layer prefix, colours (ACI), text, fill, and an optional base drawing."""
+
+    base: Path | None = None
+    base_unit: str | None = None  # for a base drawing whose $INSUNITS says nothing
+    prefix: str = "OVL"
+    colours: tuple[tuple[str, int], ...] = ()
+    text_height_m: float = 0.06
+    text_style: str = "OVL-TEXT"
+    font: str = "DejaVuSans.ttf"
+    fill: str = "SOLID"
+    fill_transparency: float = 0.6
+    reuse_layers: bool = False
+
+
+@dataclass(frozen=True)
+class MergeSpec:
+    """Where findings go in the owner's asset GeoPackage ([elements] names the file and its asset layer)."""
+
+    findings_layer: str = "acoustic_findings"
+    method: str = "acoustic non-contact scan, vibration energy ratio"
+    backup: bool = True
+
+
+@dataclass(frozen=True)
 class AlignmentSpec:
     """A reference line for stations: vertices in the drawing or map frame, and its start station."""
 
@@ -107,6 +132,8 @@ class Site:
     basis: str = "outline"
     elements: Elements | None = None
     alignment: AlignmentSpec | None = None
+    dxf: DxfStyle = field(default_factory=DxfStyle)
+    merge: MergeSpec | None = None
     basename: str = "overlay"
     formats: tuple[str, ...] = DEFAULT_FORMATS
 
@@ -157,6 +184,10 @@ def read_site(path: str | Path) -> Site:
     basis = rp.choice("basis", ("outline", "contour"), default="outline")
     elements = _elements(doc, path)
     alignment = _alignment(doc)
+    dxf = _dxf(doc, path)
+    merge = _merge(doc)
+    if merge is not None and elements is None:
+        raise doc.fail("merge", "needs [elements] naming the owner's asset GeoPackage and layer")
 
     cps: dict[str, tuple[float, float]] = {}
     cp = doc.table_of("control_points")
@@ -207,6 +238,8 @@ def read_site(path: str | Path) -> Site:
         basis=basis,
         elements=elements,
         alignment=alignment,
+        dxf=dxf,
+        merge=merge,
         basename=basename,
         formats=tuple(formats),
     )
@@ -308,6 +341,53 @@ def _elements(doc: Fields, path: Path) -> Elements | None:
     out = Elements(full, e.string("layer"), e.string("id_field", "asset_id") or "asset_id")
     _warn_unknown(e)
     return out
+
+
+def _dxf(doc: Fields, path: Path) -> DxfStyle:
+    d = doc.table_of("dxf")
+    if d is None:
+        return DxfStyle()
+    base = d.string("base")
+    full = None
+    if base is not None:
+        full = path.parent / base
+        if not full.is_file():
+            raise d.fail("base", f"file not found: {full}")
+    prefix = d.string("prefix", "OVL") or "OVL"
+    if not prefix.replace("-", "").replace("_", "").isalnum():
+        raise d.fail("prefix", f"must be letters, digits, - or _, got {prefix!r}")
+    colours = d.raw("colours", {}) or {}
+    if not isinstance(colours, dict) or not all(isinstance(v, int) and 1 <= v <= 255 for v in colours.values()):
+        raise d.fail("colours", "must be a table of class name = ACI colour number (1..255)")
+    transparency = d.number("fill_transparency", 0.6, minimum=0.0) or 0.0
+    if transparency > 1:
+        raise d.fail("fill_transparency", f"must lie in 0..1, got {transparency:g}")
+    style = DxfStyle(
+        base=full,
+        base_unit=d.choice("base_unit", tuple(UNIT_TO_M), default="m") if d.has("base_unit") else None,
+        prefix=prefix,
+        colours=tuple(sorted(colours.items())),
+        text_height_m=d.number("text_height_m", 0.06, positive=True) or 0.06,
+        text_style=d.string("text_style", "OVL-TEXT") or "OVL-TEXT",
+        font=d.string("font", "DejaVuSans.ttf") or "DejaVuSans.ttf",
+        fill=d.string("fill", "SOLID") or "SOLID",
+        fill_transparency=transparency,
+        reuse_layers=_bool(d, "reuse_layers", False),
+    )
+    _warn_unknown(d)
+    return style
+
+
+def _merge(doc: Fields) -> MergeSpec | None:
+    m = doc.table_of("merge")
+    if m is None:
+        return None
+    layer = m.string("findings_layer", "acoustic_findings") or "acoustic_findings"
+    if not layer.replace("_", "").isalnum():
+        raise m.fail("findings_layer", f"must be letters, digits or _, got {layer!r}")
+    spec = MergeSpec(layer, m.string("method", MergeSpec.method) or MergeSpec.method, _bool(m, "backup", True))
+    _warn_unknown(m)
+    return spec
 
 
 def _alignment(doc: Fields) -> AlignmentSpec | None:

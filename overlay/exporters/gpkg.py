@@ -7,6 +7,7 @@ site file, geometries stay in drawing coordinates (metres) with no CRS.
 from __future__ import annotations
 
 import json
+import sqlite3
 import warnings
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -62,6 +63,7 @@ class GeoPackageExporter:
                     dataset_options=GPKG_OPTIONS if name == "zones" else None,
                 )
             pyogrio.write_dataframe(_runs(result), path, layer="runs", driver="GPKG")
+        describe_columns(path, FIELD_DOCS)
 
 
 def _points(result: "RunResult", move: Any, crs: Any) -> gpd.GeoDataFrame:
@@ -86,6 +88,63 @@ def _points(result: "RunResult", move: Any, crs: Any) -> gpd.GeoDataFrame:
         df[col] = df[col].where(np.isfinite(df[col]), np.nan)
     geom = gpd.points_from_xy(df.pop("x"), df.pop("y"), crs=crs)
     return gpd.GeoDataFrame(df, geometry=geom, crs=crs)
+
+
+FIELD_DOCS: dict[str, dict[str, str]] = {
+    "zones": {
+        "zone_id": "scan id . class . number, stable across runs",
+        "class": "class name; classes are nested, do not add their areas",
+        "threshold_db": "class level of vibration energy ratio, dB",
+        "defect_id": "zone of the lowest class whose defect outline this zone shares",
+        "area_m2": "area of the class contour, surface m2",
+        "area_low_m2": "contour shrunk by half a grid spacing, m2",
+        "area_high_m2": "contour grown by half a grid spacing, m2",
+        "outline_area_m2": "estimated defect outline (plate mode-shape model), m2",
+        "peak_hz": "peak frequency of the zone's averaged spectrum, Hz",
+        "peak_spread": "interquartile range over median of per-point peak frequencies",
+        "depth_low_m": "cover thickness, clamped-edge plate: order of magnitude only",
+        "depth_high_m": "cover thickness, simply supported plate: order of magnitude only",
+        "footprint_area_m2": "repair rectangle: outline grown by the cutting margin, m2",
+        "volume_low_m3": "footprint area x depth_low_m",
+        "volume_high_m3": "footprint area x depth_high_m",
+        "confidence": "support x contrast x coherence x quality, 0-1 (docs/zones.md)",
+        "station_m": "station of the centroid along the site alignment, m",
+        "offset_m": "offset of the centroid from the alignment, left positive, m",
+    },
+    "points": {
+        "ver_db": "vibration energy ratio against the scan's reference, dB",
+        "energy": "band mean-square velocity normal to the surface, (m/s)2",
+        "snr_db": "in-band peak over median PSD, dB",
+        "incidence_deg": "angle of the laser beam to the surface normal",
+        "invalid_reason": "why the point is not used (empty when valid)",
+    },
+}
+
+
+def describe_columns(path: Path, docs: dict[str, dict[str, str]]) -> None:
+    """Field descriptions in gpkg_data_columns (the GeoPackage schema extension), read by QGIS and others."""
+    con = sqlite3.connect(path)
+    try:
+        with con:
+            con.execute(
+                "CREATE TABLE IF NOT EXISTS gpkg_data_columns (table_name TEXT NOT NULL, column_name TEXT NOT NULL, "
+                "name TEXT, title TEXT, description TEXT, mime_type TEXT, constraint_name TEXT, "
+                "CONSTRAINT pk_gdc PRIMARY KEY (table_name, column_name), "
+                "CONSTRAINT gdc_tn UNIQUE (table_name, name))")
+            con.execute(
+                "CREATE TABLE IF NOT EXISTS gpkg_extensions (table_name TEXT, column_name TEXT, extension_name TEXT NOT NULL, "
+                "definition TEXT NOT NULL, scope TEXT NOT NULL, "
+                "CONSTRAINT ge_tce UNIQUE (table_name, column_name, extension_name))")
+            con.execute("INSERT OR IGNORE INTO gpkg_extensions VALUES ('gpkg_data_columns', NULL, 'gpkg_schema', "
+                        "'http://www.geopackage.org/spec/#extension_schema', 'read-write')")
+            for table, cols in docs.items():
+                present = {r[1] for r in con.execute(f'PRAGMA table_info("{table}")')}
+                for col, text in cols.items():
+                    if col in present:
+                        con.execute("INSERT OR REPLACE INTO gpkg_data_columns (table_name, column_name, name, title, "
+                                    "description) VALUES (?, ?, ?, ?, ?)", (table, col, col, col, text))
+    finally:
+        con.close()
 
 
 def _defects(result: "RunResult", move: Any, crs: Any, which: str) -> gpd.GeoDataFrame:
