@@ -1,8 +1,10 @@
-"""Element outlines from the owner's GIS layer, for the share of each element a defect affects."""
+"""The owner's element (asset) layer: outlines for area shares, and zones split by the assets they touch."""
 
 from __future__ import annotations
 
 import warnings
+from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pyogrio
@@ -11,16 +13,25 @@ import shapely
 
 from .errors import SiteFileError
 from .frames import crs_transformer
-from .transforms import Similarity
 from .site import Elements
+from .transforms import Similarity
+
+if TYPE_CHECKING:
+    from .zones import Zone
 
 
-def element_areas(elements: Elements, crs: object, to_map: Similarity | None, drawing_unit_m: float) -> dict[str, float]:
-    """Area in m² (surface) of each element of the layer, keyed by its id field.
+@dataclass
+class ElementLayer:
+    """Asset ids and outlines in the map CRS (reprojected if needed), with surface areas in m²."""
 
-    The layer is reprojected into the map CRS if it is in another one; map area
-    is turned into surface area through the drawing placement's scale.
-    """
+    ids: list[str]
+    outlines: np.ndarray  # shapely polygons, map CRS
+    areas_m2: dict[str, float]
+    area_factor: float  # map area per surface m² (the placement's scale squared)
+
+
+def read_elements(elements: Elements, crs: pyproj.CRS | None, to_map: Similarity | None, drawing_unit_m: float) -> ElementLayer:
+    """Read the layer, bring it into the map CRS through our CRS checks, and take each asset's area."""
     src = str(elements.source)
     try:
         frame = pyogrio.read_dataframe(elements.source, layer=elements.layer)
@@ -30,14 +41,36 @@ def element_areas(elements: Elements, crs: object, to_map: Similarity | None, dr
         raise SiteFileError(
             f"no field {elements.id_field!r}; the layer has {', '.join(c for c in frame.columns if c != 'geometry')}",
             source=src, field="elements.id_field")
+    geoms = np.asarray(frame.geometry.values, dtype=object)
     if crs is not None and frame.crs is not None and not frame.crs.equals(crs):
         # through our own check: never a silent ballpark datum shift
-        lonlat = pyproj.Transformer.from_crs(frame.crs, frame.crs.geodetic_crs, always_xy=True).transform(
-            *frame.geometry.union_all().centroid.coords[0])
+        centre = shapely.union_all(geoms).centroid
+        lonlat = pyproj.Transformer.from_crs(frame.crs, frame.crs.geodetic_crs, always_xy=True).transform(centre.x, centre.y)
         t, _ = crs_transformer(frame.crs, crs, lonlat, source=src)
-        frame = frame.set_geometry(shapely.transform(frame.geometry.values, lambda xy: np.column_stack(t.transform(xy[:, 0], xy[:, 1]))),
-                                   crs=crs)
+        geoms = shapely.transform(geoms, lambda xy: np.column_stack(t.transform(xy[:, 0], xy[:, 1])))
     elif crs is None or frame.crs is None:
-        warnings.warn(f"{src}: element layer or map frame has no CRS; areas taken as they are", stacklevel=2)
+        warnings.warn(f"{src}: element layer or map frame has no CRS; outlines taken as they are", stacklevel=2)
     k = 1.0 if to_map is None else (to_map.scale / drawing_unit_m) ** 2
-    return {str(i): float(a) / k for i, a in zip(frame[elements.id_field], frame.geometry.area)}
+    ids = [str(i) for i in frame[elements.id_field]]
+    return ElementLayer(ids, geoms, {i: float(g.area) / k for i, g in zip(ids, geoms)}, k)
+
+
+def split_by_assets(zones: list["Zone"], basis: str, to_map: Similarity | None, layer: ElementLayer) -> list[dict]:
+    """Each zone's affected polygon (defect outline or contour) cut by the assets it overlaps.
+
+    Every piece belongs to one asset; pieces of one zone add up to its area
+    where the zone lies within the assets.  Geometries in the map CRS, areas in surface m².
+    """
+    tree = shapely.STRtree(layer.outlines)
+    pieces: list[dict] = []
+    for z in zones:
+        poly = z.defect if basis == "outline" else z.contour
+        g = to_map.apply_geometry(poly) if to_map is not None else poly
+        for k in tree.query(g, predicate="intersects"):
+            part = shapely.intersection(g, layer.outlines[k])
+            if part.is_empty or part.area <= 0:
+                continue
+            pieces.append({"asset_id": layer.ids[k], "zone_id": z.zone_id, "defect_id": z.defect_id,
+                           "scan_id": z.scan_id, "class": z.class_name, "area_m2": part.area / layer.area_factor,
+                           "geometry": part})
+    return pieces

@@ -20,7 +20,7 @@ from . import __version__
 from .bundle import Scan, read_bundle
 from .cautions import CAUTIONS
 from .contour import level_polygons
-from .elements import element_areas
+from .elements import read_elements, split_by_assets
 from .energy import Reference, reference_energy, ver_db
 from .errors import BundleError, SignalError, SiteFileError
 from .fits import Fit, check_fit, fit_points
@@ -91,6 +91,7 @@ class RunResult:
     cautions: tuple[str, ...] = CAUTIONS
     warnings: list[str] = field(default_factory=list)
     element_areas: dict[str, float] = field(default_factory=dict)
+    asset_pieces: list[dict] = field(default_factory=list)  # zones split by the owner's assets (map CRS)
     map_scale: tuple[float, float] | None = None  # (point scale k, areal scale) of the map CRS at the site
 
     @property
@@ -426,9 +427,10 @@ def run_site(
         scale = site_scale_factor(crs, to_map.apply(corners)) if crs is not None and to_map is not None and len(corners) else None
         if site.alignment is not None:
             locate_zones([z for r in results for z in r.zones], site, to_map)
-        areas = element_areas(site.elements, crs, to_map, UNIT_TO_M[site.drawing_unit]) if site.elements else {}
+        layer = read_elements(site.elements, crs, to_map, UNIT_TO_M[site.drawing_unit]) if site.elements else None
     for w in seen:
         caught.append(str(w.message))
         warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
-    return RunResult(site, results, to_map, crs, map_fit, started, warnings=caught, element_areas=areas,
-                     map_scale=scale)
+    pieces = split_by_assets([z for r in results for z in r.zones], site.basis, to_map, layer) if layer else []
+    return RunResult(site, results, to_map, crs, map_fit, started, warnings=caught,
+                     element_areas=layer.areas_m2 if layer else {}, asset_pieces=pieces, map_scale=scale)

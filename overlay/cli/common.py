@@ -7,6 +7,7 @@ import sys
 from pathlib import Path
 from tqdm import tqdm
 
+from ..merge import merge_findings
 from ..outputs import write_outputs
 from ..pipeline import RunResult, run_site
 from ..report import run_report
@@ -19,9 +20,12 @@ def add_output_options(p: argparse.ArgumentParser, default_out: str) -> None:
     p.add_argument("--accept-misfit", action="store_true",
                    help="go on when a target fit exceeds the tolerance (recorded in the outputs)")
     p.add_argument("-q", "--quiet", action="store_true", help="print only the output paths")
+    p.add_argument("--no-merge", action="store_true",
+                   help="do not write findings into the owner's asset GeoPackage even if the site file says so")
 
 
-def run_and_write(site: Site, out: Path, *, overwrite: bool, quiet: bool) -> tuple[RunResult, dict[str, Path]]:
+def run_and_write(site: Site, out: Path, *, overwrite: bool, quiet: bool, merge: bool = True
+                  ) -> tuple[RunResult, dict[str, Path]]:
     """Process the site with a progress bar (on a terminal only), write outputs, print the report."""
     hide = True if quiet else None  # None: tqdm shows bars on a terminal only
     scans = tqdm(total=len(site.scans), desc="scans ", unit="scan", disable=hide, file=sys.stderr, position=0)
@@ -44,4 +48,9 @@ def run_and_write(site: Site, out: Path, *, overwrite: bool, quiet: bool) -> tup
     print("written:")
     for p in paths.values():
         print(f"  {p}")
+    if site.merge is not None and merge:
+        m = merge_findings(result)
+        print(f"merged into {m.target} layer {m.layer}: {m.added} row(s) of this run"
+              f" ({m.replaced} earlier row(s) of the same scans replaced, {m.kept} other row(s) kept)"
+              + (f"; backup {m.backup}" if m.backup else ""))
     return result, paths

@@ -1,6 +1,8 @@
 """Quantities CSV for the repair contractor: one row per zone, then one per (element, class).
 
-Each zone's affected area is its estimated defect outline (``basis = outline``,
+Then, when the owner's asset layer is known, one row per (asset, class) with the
+affected area cut by the asset outlines (a defect across two panels counts in
+both, each with its own part).  Each zone's affected area is its estimated defect outline (``basis = outline``,
 the default) or its class contour.  Classes are nested, so a defect appears in
 every class it reaches; a class total counts each defect once and answers
 "what does it take to repair every defect of at least this class".  Do not add
@@ -72,7 +74,27 @@ def quantity_rows(result: "RunResult") -> list[dict[str, object]]:
             "volume_low_m3": _r(sum(z.volume_low_m3 for z in ms), 5), "volume_high_m3": _r(sum(z.volume_high_m3 for z in ms), 5),
             "element_area_m2": _r(el, 3), "element_share_pct": _r(100 * a / el, 3), "peak_hz": "", "confidence": "",
         })
+    rows.extend(asset_rows(result))
     return rows
+
+
+def asset_rows(result: "RunResult") -> list[dict[str, object]]:
+    """Per (asset, class): the affected area cut by the owner's asset outlines, each defect once."""
+    basis = result.site.basis
+    groups: dict[tuple[str, str], dict[str, float]] = {}
+    for p in result.asset_pieces:
+        key = p["defect_id"] if basis == "outline" else p["zone_id"]
+        groups.setdefault((p["asset_id"], p["class"]), {})[key] = p["area_m2"]
+    order = {c.name: i for i, c in enumerate(result.site.classes)}
+    out = []
+    for (asset, cls), parts in sorted(groups.items(), key=lambda kv: (kv[0][0], order[kv[0][1]])):
+        a = sum(parts.values())
+        el = result.element_areas.get(asset, float("nan"))
+        row = {c: "" for c in COLUMNS}
+        row.update({"row_kind": "asset_total", "element": asset, "class": cls, "n_defects": len(parts), "basis": basis,
+                    "affected_area_m2": _r(a, 4), "element_area_m2": _r(el, 3), "element_share_pct": _r(100 * a / el, 3)})
+        out.append(row)
+    return out
 
 
 class QuantitiesCsvExporter:
