@@ -82,7 +82,7 @@ def test_unknown_exporter_names_choices(tmp_path: Path, capsys: pytest.CaptureFi
     site = write_site(tmp_path, ["S-1"], extra='\n[outputs]\nformats = ["dxf", "shapefile"]\n')
     assert main(["run", str(site), "--out", str(tmp_path / "out")]) == 3
     err = capsys.readouterr().err
-    assert "outputs.formats: unknown exporter 'shapefile'; available: dxf, gpkg, quantities-csv" in err
+    assert "outputs.formats: unknown exporter 'shapefile'; available: dxf, geojson, gpkg, quantities-csv" in err
     assert _files(tmp_path / "out") == []
 
 

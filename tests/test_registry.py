@@ -33,7 +33,7 @@ def _ep(name: str, target: str) -> EntryPoint:
 
 def test_builtin_exporters_register_through_the_group() -> None:
     usable, broken = load_exporters()
-    assert {"dxf", "gpkg", "quantities-csv"} <= set(usable)
+    assert {"dxf", "gpkg", "quantities-csv", "geojson"} <= set(usable)
     assert broken == []
 
 
