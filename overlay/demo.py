@@ -295,7 +295,7 @@ def _write_scan(folder: Path, s: dict, sc: dict, defects: list[dict], t: np.ndar
             f'[[targets]]\nname = "{name}"\nscanner = [{seen[0]:.5f}, {seen[1]:.5f}]\n'
             f"drawing = [{surveyed[0]:.4f}, {surveyed[1]:.4f}]\n"
         )
-    coords = f'kind = "angles"' if kind == "angles" else f'kind = "surface"\nunit = "{s["unit"]}"'
+    coords = 'kind = "angles"' if kind == "angles" else f'kind = "surface"\nunit = "{s["unit"]}"'
     head = s.get("standoff_m", acq["head_distance_m"])
     manifest = f'''format = "scan-bundle/1"
 

@@ -12,7 +12,7 @@ import pyproj
 import shapely
 
 from .errors import SiteFileError
-from .frames import crs_transformer
+from .frames import reproject
 from .site import Elements
 from .transforms import Similarity
 
@@ -43,11 +43,7 @@ def read_elements(elements: Elements, crs: pyproj.CRS | None, to_map: Similarity
             source=src, field="elements.id_field")
     geoms = np.asarray(frame.geometry.values, dtype=object)
     if crs is not None and frame.crs is not None and not frame.crs.equals(crs):
-        # through our own check: never a silent ballpark datum shift
-        centre = shapely.union_all(geoms).centroid
-        lonlat = pyproj.Transformer.from_crs(frame.crs, frame.crs.geodetic_crs, always_xy=True).transform(centre.x, centre.y)
-        t, _ = crs_transformer(frame.crs, crs, lonlat, source=src)
-        geoms = shapely.transform(geoms, lambda xy: np.column_stack(t.transform(xy[:, 0], xy[:, 1])))
+        geoms, _, _ = reproject(geoms, frame.crs, crs, source=src)  # never a silent ballpark datum shift
     elif crs is None or frame.crs is None:
         warnings.warn(f"{src}: element layer or map frame has no CRS; outlines taken as they are", stacklevel=2)
     k = 1.0 if to_map is None else (to_map.scale / drawing_unit_m) ** 2

@@ -13,6 +13,7 @@ from typing import Any
 
 import numpy as np
 import pyproj
+import shapely
 from pyproj.exceptions import CRSError
 
 from .errors import CRSCheckError, RegistrationWarning
@@ -111,3 +112,16 @@ def site_scale_factor(crs: pyproj.CRS, site_xy: np.ndarray) -> tuple[float, floa
     lon, lat = pyproj.Transformer.from_crs(crs, crs.geodetic_crs, always_xy=True).transform(c[0], c[1])
     f = pyproj.Proj(crs).get_factors(lon, lat)
     return float(math.sqrt(f.meridional_scale * f.parallel_scale)), float(f.areal_scale)
+
+
+def reproject(geoms: Any, src: Any, dst: Any, *, source: str | None = None) -> tuple[Any, pyproj.Transformer, float]:
+    """Shapely geometries (one or an array) from ``src`` to ``dst`` through ``crs_transformer``, the
+    transformation chosen for where the geometries are; returns (geometries, transformer, accuracy)."""
+    a = to_crs(src, source=source)
+    centre = shapely.union_all(geoms).centroid
+    lonlat = None
+    if not centre.is_empty:
+        lonlat = pyproj.Transformer.from_crs(a, a.geodetic_crs, always_xy=True).transform(centre.x, centre.y)
+    t, accuracy = crs_transformer(a, dst, lonlat, source=source)
+    moved = shapely.transform(geoms, lambda xy: np.column_stack(t.transform(xy[:, 0], xy[:, 1])))
+    return moved, t, accuracy

@@ -27,10 +27,9 @@ import numpy as np
 import pandas as pd
 import pyogrio
 import pyproj
-import shapely
 
 from .errors import OutputConflictError, SiteFileError
-from .frames import crs_transformer
+from .frames import reproject
 
 if TYPE_CHECKING:
     from .pipeline import RunResult
@@ -141,10 +140,7 @@ def _in_asset_crs(frame: gpd.GeoDataFrame, target: Path, asset_layer: str | None
     dst = pyproj.CRS.from_user_input(crs)
     if dst.equals(frame.crs) or frame.empty:
         return frame.set_crs(dst, allow_override=True)
-    centre = frame.geometry.union_all().centroid
-    lonlat = pyproj.Transformer.from_crs(frame.crs, frame.crs.geodetic_crs, always_xy=True).transform(centre.x, centre.y)
-    t, _ = crs_transformer(frame.crs, dst, lonlat, source=str(target))
-    moved = shapely.transform(frame.geometry.values, lambda xy: np.column_stack(t.transform(xy[:, 0], xy[:, 1])))
+    moved, _, _ = reproject(np.asarray(frame.geometry.values, dtype=object), frame.crs, dst, source=str(target))
     return gpd.GeoDataFrame(frame.drop(columns="geometry"), geometry=gpd.GeoSeries(moved, crs=dst), crs=dst)
 
 

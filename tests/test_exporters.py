@@ -6,7 +6,6 @@ from __future__ import annotations
 import csv
 import sqlite3
 import struct
-from pathlib import Path
 
 import ezdxf
 import numpy as np

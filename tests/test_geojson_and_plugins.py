@@ -10,7 +10,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 import shapely
-from shapely.geometry import LinearRing, shape
+from shapely.geometry import LinearRing
 
 from overlay.cautions import CAUTIONS
 from overlay.exporters import GROUP, load_exporters

@@ -15,14 +15,12 @@ from pathlib import Path
 from typing import TYPE_CHECKING
 
 import numpy as np
-import pyproj
-import shapely
 from shapely.geometry import mapping
 from shapely.geometry.polygon import orient
 
 from ..cautions import CAUTIONS
 from ..errors import SiteFileError
-from ..frames import crs_transformer
+from ..frames import reproject
 
 if TYPE_CHECKING:
     from ..pipeline import RunResult
@@ -48,15 +46,10 @@ class GeoJsonExporter:
             raise SiteFileError("GeoJSON needs a [map] frame in the site file (RFC 7946 is WGS 84 only)",
                                 source=result.site.path, field="outputs.formats")
         zones = result.zones
-        mapped = [result.to_map.apply_geometry(z.contour) for z in zones]
-        centre = shapely.union_all(mapped).centroid if mapped else None
-        lonlat = None
-        if centre is not None:
-            lonlat = pyproj.Transformer.from_crs(result.crs, result.crs.geodetic_crs, always_xy=True).transform(centre.x, centre.y)
-        t, accuracy = crs_transformer(result.crs, "EPSG:4326", lonlat, source=str(result.site.path))
+        mapped = np.array([result.to_map.apply_geometry(z.contour) for z in zones], dtype=object)
+        moved, t, accuracy = reproject(mapped, result.crs, "EPSG:4326", source=str(result.site.path))
         feats = []
-        for z, g in zip(zones, mapped):
-            wgs = shapely.transform(g, lambda xy: np.column_stack(t.transform(xy[:, 0], xy[:, 1])))
+        for z, wgs in zip(zones, moved):
             wgs = orient(wgs, sign=1.0)  # exterior counter-clockwise, holes clockwise (RFC 7946 §3.1.6)
             geom = json.loads(json.dumps(mapping(wgs)), parse_float=lambda s: round(float(s), DECIMALS))
             feats.append({"type": "Feature", "id": z.zone_id, "geometry": geom,
