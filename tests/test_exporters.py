@@ -165,3 +165,37 @@ def test_report_carries_cautions(written: dict) -> None:
         assert c in text
     for z in written["result"].zones:
         assert z.zone_id in text
+
+
+def test_dxf_hatches_carry_holes_as_islands(written: dict) -> None:
+    # DXF reference, HATCH: 91 = number of boundary paths, 92 path type bits (1 external, 16 outermost)
+    result = written["result"]
+    doc = ezdxf.readfile(written["paths"]["dxf"])
+    for zc in result.site.classes:
+        hatches = doc.modelspace().query(f'HATCH[layer=="{layer_names(zc.name)["fill"]}"]')
+        zones = sorted((z for z in result.zones if z.class_name == zc.name), key=lambda z: len(z.contour.interiors))
+        paths = sorted(len(h.paths) for h in hatches)
+        assert paths == [1 + len(z.contour.interiors) for z in zones]
+        for h in hatches:
+            assert h.paths[0].path_type_flags & 1 and h.paths[0].path_type_flags & 16
+
+
+def test_geopackage_field_descriptions(written: dict) -> None:
+    con = sqlite3.connect(written["paths"]["gpkg"])
+    try:
+        rows = dict(con.execute("select column_name, description from gpkg_data_columns where table_name='zones'"))
+        ext = con.execute("select extension_name from gpkg_extensions where table_name='gpkg_data_columns'").fetchall()
+        assert con.execute("pragma integrity_check").fetchone()[0] == "ok"
+    finally:
+        con.close()
+    assert "order of magnitude" in rows["depth_low_m"] and ext == [("gpkg_schema",)]
+
+
+def test_gdal_command_line_reads_the_geopackage(written: dict) -> None:
+    import shutil
+    import subprocess
+
+    if shutil.which("ogrinfo") is None:
+        pytest.skip("GDAL command-line tools not installed")
+    done = subprocess.run(["ogrinfo", "-so", "-al", str(written["paths"]["gpkg"])], capture_output=True, text=True)
+    assert done.returncode == 0 and "zones" in done.stdout
