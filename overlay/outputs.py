@@ -84,20 +84,60 @@ def select_exporters(formats: Sequence[str], source: Path | None = None) -> dict
     return chosen
 
 
-def write_outputs(result: "RunResult", out_dir: Path, *, overwrite: bool = False) -> dict[str, Path]:
-    """Write every requested format and the report; all move into place together or none does."""
+def picture_names(result: "RunResult", with_dxf: bool) -> list[str]:
+    """Names of the pictures a run draws (files ``<name>.png`` in ``<basename>-pictures/``)."""
+    names = ["site-map"] + [f"scan-{s.scan_id}" for s in result.scans] + [f"zone-{z.zone_id}" for z in result.zones]
+    return names + (["dxf-preview"] if with_dxf else [])
+
+
+def draw_pictures(result: "RunResult", dxf_path: Path | None) -> dict[str, bytes]:
+    """Every picture of the run as PNG bytes, by name."""
+    from . import pictures
+
+    base = result.site.dxf.base
+    images = {"site-map": pictures.site_map(result, pictures.drawing_lines(base) if base else None)}
+    for s in result.scans:
+        images[f"scan-{s.scan_id}"] = pictures.scan_preview(result, s)
+        for z in s.zones:
+            images[f"zone-{z.zone_id}"] = pictures.zone_sheet(result, s, z)
+    if dxf_path is not None:
+        images["dxf-preview"] = pictures.dxf_preview(dxf_path)
+    return images
+
+
+def write_outputs(result: "RunResult", out_dir: Path, *, overwrite: bool = False, pictures: bool = True) -> dict[str, Path]:
+    """Write every requested format, the reports and (by default) the pictures; all move into place
+    together or none does."""
     from .report import run_report
+    from .report_html import site_report
 
     exporters = select_exporters(result.site.formats, result.site.path)
     paths = output_paths(out_dir, result.site.basename, exporters, result.site.formats)
-    check_targets(list(paths.values()), overwrite=overwrite)
-    with staged(list(paths.values())) as temps:
-        for fmt, exporter in exporters.items():
-            try:
-                exporter.write(result, temps[paths[fmt]])
-            except OverlayError:
-                raise
-            except Exception as exc:
-                raise ExporterError(f"exporter {fmt!r} failed: {type(exc).__name__}: {exc}", source=paths[fmt]) from exc
-        temps[paths["report"]].write_text(run_report(result), encoding="utf-8")
+    folder = out_dir / f"{result.site.basename}-pictures"
+    pics: dict[str, Path] = {}
+    if pictures:
+        paths["html"] = out_dir / f"{result.site.basename}-report.html"
+        pics = {n: folder / f"{n}.png" for n in picture_names(result, "dxf" in exporters)}
+    check_targets(list(paths.values()) + list(pics.values()), overwrite=overwrite)
+    try:
+        with staged(list(paths.values()) + list(pics.values())) as temps:
+            for fmt, exporter in exporters.items():
+                try:
+                    exporter.write(result, temps[paths[fmt]])
+                except OverlayError:
+                    raise
+                except Exception as exc:
+                    raise ExporterError(f"exporter {fmt!r} failed: {type(exc).__name__}: {exc}", source=paths[fmt]) from exc
+            temps[paths["report"]].write_text(run_report(result), encoding="utf-8")
+            if pictures:
+                images = draw_pictures(result, temps[paths["dxf"]] if "dxf" in exporters else None)
+                for name, png in images.items():
+                    temps[pics[name]].write_bytes(png)
+                temps[paths["html"]].write_text(site_report(result, images), encoding="utf-8")
+    except BaseException:
+        with contextlib.suppress(OSError):
+            folder.rmdir()  # only if we left it empty
+        raise
+    if pictures:
+        paths["pictures"] = folder
     return paths

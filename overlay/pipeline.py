@@ -75,6 +75,8 @@ class ScanResult:
     invalid_reason: np.ndarray
     targets: list[TargetResult]
     zones: list[Zone]
+    band_freqs: np.ndarray | None = None  # Hz, the frequency axis of zone spectra
+    healthy_spectrum: np.ndarray | None = None  # mean band PSD of sound points (|VER| < 1 dB)
 
 
 @dataclass
@@ -230,6 +232,7 @@ def process_scan(
     values = grid.contour_values(ver, valid)
     scan_area = grid.extent()
     zone_psd = _zone_psd_source(scan, gate)
+    band_freqs, healthy = _healthy_spectrum(zone_psd, ver, valid)
     zones: list[Zone] = []
     parents: list[Zone] = []
     lower = None
@@ -273,6 +276,8 @@ def process_scan(
         invalid_reason=reason,
         targets=reg.targets,
         zones=zones,
+        band_freqs=band_freqs,
+        healthy_spectrum=healthy,
     )
 
 
@@ -300,6 +305,19 @@ def _zone_psd_source(scan: Scan, gate: Gate | None) -> Callable[[np.ndarray], tu
     if scan.payload == "spectra" and scan.band_hz is not None:
         return lambda rows: given_psd_rows(scan.spectra, scan.frequencies, scan.band_hz, scan.velocity_scale, rows)
     return None
+
+
+def _healthy_spectrum(zone_psd: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]] | None, ver: np.ndarray,
+                      valid: np.ndarray, n: int = 256) -> tuple[np.ndarray | None, np.ndarray | None]:
+    """The band axis and the mean PSD of up to ``n`` sound points (|VER| < 1 dB), for zone sheets."""
+    if zone_psd is None:
+        return None, None
+    rows = np.nonzero(valid & (np.abs(ver) < 1.0))[0]
+    if rows.size == 0:
+        return None, None
+    rows = rows[np.linspace(0, rows.size - 1, min(n, rows.size)).astype(int)]
+    freqs, psd = zone_psd(rows)
+    return freqs, np.nanmean(psd, axis=0)
 
 
 def _build_zone(zone_id: str, scan_id: str, element: str, cls: str, threshold: float, contour: Polygon, surveyed: str,

@@ -37,7 +37,8 @@ def test_run_writes_outputs_and_refuses_to_overwrite(site: Path, tmp_path: Path,
     out = tmp_path / "out"
     assert main(["run", str(site), "--out", str(out)]) == 0
     names = {p.name for p in _files(out)}
-    assert names == {"overlay.dxf", "overlay.gpkg", "overlay-quantities.csv", "overlay-report.txt"}
+    assert names == {"overlay.dxf", "overlay.gpkg", "overlay-quantities.csv", "overlay-report.txt", "overlay-report.html",
+                     "site-map.png", "scan-S-T1.png", "dxf-preview.png"} | {f"zone-S-T1.{c}.01.png" for c in ("watch", "suspect", "probable")}
     stamp = {p: p.read_bytes() for p in _files(out)}
     capsys.readouterr()
     assert main(["run", str(site), "--out", str(out)]) == 5

@@ -175,7 +175,7 @@ def test_fit_reports_are_in_the_run_outputs(demo: dict, tmp_path) -> None:
 
     from overlay.outputs import write_outputs
 
-    paths = write_outputs(demo["result"], tmp_path)
+    paths = write_outputs(demo["result"], tmp_path, pictures=False)
     report = paths["report"].read_text()
     assert "projective on mirror-angle tangents" in report and "leave-one-out" in report
     runs = pyogrio.read_dataframe(paths["gpkg"], layer="runs")

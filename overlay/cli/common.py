@@ -20,11 +20,12 @@ def add_output_options(p: argparse.ArgumentParser, default_out: str) -> None:
     p.add_argument("--accept-misfit", action="store_true",
                    help="go on when a target fit exceeds the tolerance (recorded in the outputs)")
     p.add_argument("-q", "--quiet", action="store_true", help="print only the output paths")
+    p.add_argument("--no-pictures", action="store_true", help="skip the previews, zone sheets and HTML site report")
     p.add_argument("--no-merge", action="store_true",
                    help="do not write findings into the owner's asset GeoPackage even if the site file says so")
 
 
-def run_and_write(site: Site, out: Path, *, overwrite: bool, quiet: bool, merge: bool = True
+def run_and_write(site: Site, out: Path, *, overwrite: bool, quiet: bool, merge: bool = True, pictures: bool = True
                   ) -> tuple[RunResult, dict[str, Path]]:
     """Process the site with a progress bar (on a terminal only), write outputs, print the report."""
     hide = True if quiet else None  # None: tqdm shows bars on a terminal only
@@ -42,7 +43,7 @@ def run_and_write(site: Site, out: Path, *, overwrite: bool, quiet: bool, merge:
     finally:
         points.close()
         scans.close()
-    paths = write_outputs(result, out, overwrite=overwrite)
+    paths = write_outputs(result, out, overwrite=overwrite, pictures=pictures)
     if not quiet:
         print(run_report(result))
     print("written:")
