@@ -155,11 +155,13 @@ def test_report_loads_in_headless_chromium(written: dict, tmp_path: Path) -> Non
     done = subprocess.run(
         [browser, "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
          "--disable-component-update", "--disable-sync", "--no-first-run", f"--user-data-dir={tmp_path / 'profile'}",
+         "--enable-logging=stderr", "--log-level=0",
          f"--screenshot={shot}", "--window-size=1200,2000", written["paths"]["html"].as_uri()],
         capture_output=True, text=True, timeout=120)
     assert done.returncode == 0, done.stderr[-2000:]
     assert shot.exists() and shot.stat().st_size > 10000
-    assert "Uncaught" not in done.stderr
+    console = [line for line in done.stderr.splitlines() if "CONSOLE" in line]
+    assert not [line for line in console if "error" in line.lower() or "Uncaught" in line], console
 
 
 def test_no_pictures_writes_none(demo: dict, tmp_path: Path) -> None:
