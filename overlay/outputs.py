@@ -86,7 +86,7 @@ def select_exporters(formats: Sequence[str], source: Path | None = None) -> dict
 
 def picture_names(result: "RunResult", with_dxf: bool) -> list[str]:
     """Names of the pictures a run draws (files ``<name>.png`` in ``<basename>-pictures/``)."""
-    names = ["site-map"] + [f"scan-{s.scan_id}" for s in result.scans] + [f"zone-{z.zone_id}" for z in result.zones]
+    names = ["site-map"] + [f"scan-{s.scan_id}" for s in result.scans] + [f"zone-{z.zone_id}" for s in result.scans for z in s.zones]
     return names + (["dxf-preview"] if with_dxf else [])
 
 

@@ -20,6 +20,8 @@ import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 import shapely  # noqa: E402
 from matplotlib.patches import Polygon as MplPolygon  # noqa: E402
+from matplotlib.lines import Line2D  # noqa: E402
+from matplotlib.patches import Patch  # noqa: E402
 from matplotlib.tri import Triangulation  # noqa: E402
 
 if TYPE_CHECKING:
@@ -179,16 +181,14 @@ def site_map(result: "RunResult", drawing_lines: list[np.ndarray] | None = None)
         ax.add_patch(MplPolygon(np.asarray(z.contour.exterior.coords), closed=True, fc=colour, ec=colour, alpha=0.5, lw=0.8))
         if z.defect_id == z.zone_id:
             _rings(ax, z.footprint, color="#009E73", lw=0.8)
-    for c in result.site.classes:
-        colour, _ = _class_style(result, c.name)
-        ax.fill([], [], color=colour, alpha=0.5, label=f"{c.name} >= {c.threshold_db:g} dB")
-    ax.plot([], [], color="#009E73", label="repair footprint")
+    handles = [Patch(color=_class_style(result, c.name)[0], alpha=0.5, label=f"{c.name} >= {c.threshold_db:g} dB")
+               for c in result.site.classes] + [Line2D([], [], color="#009E73", label="repair footprint")]
     ax.set_aspect("equal")
     ax.autoscale_view()
     ax.set_xlabel(f"drawing x ({result.site.drawing_unit})")
     ax.set_ylabel(f"drawing y ({result.site.drawing_unit})")
     ax.margins(0.04)
-    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.14), ncol=4, fontsize=8, frameon=False)
+    ax.legend(handles=handles, loc="upper center", bbox_to_anchor=(0.5, -0.14), ncol=4, fontsize=8, frameon=False)
     ax.set_title(f"{result.site.name} {result.site.structure} — suspect zones", fontsize=10)
     _scale_bar(ax, result.unit_m)
     _north(ax, result)

@@ -30,6 +30,7 @@ from .transforms import Similarity, Transform
 from .beam import normal_energy
 from .gate import Gate, make_gate, window_from_geometry
 from .grid import Grid, ScatterGrid, grid_from_indices, infer_grid
+from .mosaic import mosaic_zones
 from .registration import TargetResult, register
 from .site import ScanEntry, Site
 from .spectra import band_psd_rows, given_psd_rows, given_spectra, parabolic_peak, records_spectra
@@ -95,10 +96,12 @@ class RunResult:
     element_areas: dict[str, float] = field(default_factory=dict)
     asset_pieces: list[dict] = field(default_factory=list)  # zones split by the owner's assets (map CRS)
     map_scale: tuple[float, float] | None = None  # (point scale k, areal scale) of the map CRS at the site
+    mosaic: list[Zone] = field(default_factory=list)
 
     @property
     def zones(self) -> list[Zone]:
-        return [z for s in self.scans for z in s.zones]
+        """The site's zones: overlapping zones of different scans united (overlay.mosaic)."""
+        return self.mosaic
 
     @property
     def unit_m(self) -> float:
@@ -419,14 +422,50 @@ def map_placement(site: Site, site_xy: np.ndarray) -> tuple[Similarity | None, p
     return t, crs, fit
 
 
+def scan_entry(entry: ScanEntry, site: Site, progress: Callable[[int], None] | None = None) -> ScanResult:
+    """Read one bundle and process it (the unit of work of a campaign)."""
+    return process_scan(read_bundle(entry.bundle), site, entry, progress)
+
+
+def finish_site(site: Site, results: list[ScanResult], started: str, caught: list[str]) -> RunResult:
+    """From per-scan results to the site: unique ids, map placement and checks, mosaic, stations, assets."""
+    ids = [r.scan_id for r in results]
+    dup = {i for i in ids if ids.count(i) > 1}
+    if dup:
+        raise BundleError(f"scan id(s) {', '.join(sorted(dup))} used by more than one bundle", source=site.path)
+    with warnings.catch_warnings(record=True) as seen:
+        warnings.simplefilter("always")
+        corners = np.concatenate([np.asarray(r.extent.exterior.coords) for r in results if not r.extent.is_empty]
+                                 or [np.zeros((0, 2))])
+        to_map, crs, map_fit = map_placement(site, corners)
+        scale = site_scale_factor(crs, to_map.apply(corners)) if crs is not None and to_map is not None and len(corners) else None
+        zones = mosaic_zones([z for r in results for z in r.zones], site, UNIT_TO_M[site.drawing_unit])
+        if site.alignment is not None:
+            locate_zones(zones, site, to_map)
+        layer = read_elements(site.elements, crs, to_map, UNIT_TO_M[site.drawing_unit]) if site.elements else None
+    for w in seen:
+        caught.append(str(w.message))
+        warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
+    pieces = split_by_assets(zones, site.basis, to_map, layer) if layer else []
+    return RunResult(site, results, to_map, crs, map_fit, started, warnings=caught, mosaic=zones,
+                     element_areas=layer.areas_m2 if layer else {}, asset_pieces=pieces, map_scale=scale)
+
+
+def now_utc() -> str:
+    return dt.datetime.now(dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+
+
 def run_site(
     site: Site,
     *,
     on_scan: Callable[[str, int], None] | None = None,
     progress: Callable[[int], None] | None = None,
 ) -> RunResult:
-    """Process every scan of a site; the first failing scan stops the run with its error."""
-    started = dt.datetime.now(dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+    """Process every scan of a site in this process; the first failing scan stops the run with its error.
+
+    (overlay.campaign runs scans in parallel, keeps going past failures and caches.)
+    """
+    started = now_utc()
     results: list[ScanResult] = []
     caught: list[str] = []
     with warnings.catch_warnings(record=True) as seen:
@@ -436,19 +475,7 @@ def run_site(
             if on_scan is not None:
                 on_scan(scan.scan_id, scan.n_points)
             results.append(process_scan(scan, site, entry, progress))
-        ids = [r.scan_id for r in results]
-        dup = {i for i in ids if ids.count(i) > 1}
-        if dup:
-            raise BundleError(f"scan id(s) {', '.join(sorted(dup))} used by more than one bundle", source=site.path)
-        corners = np.concatenate([np.asarray(r.extent.exterior.coords) for r in results if not r.extent.is_empty] or [np.zeros((0, 2))])
-        to_map, crs, map_fit = map_placement(site, corners)
-        scale = site_scale_factor(crs, to_map.apply(corners)) if crs is not None and to_map is not None and len(corners) else None
-        if site.alignment is not None:
-            locate_zones([z for r in results for z in r.zones], site, to_map)
-        layer = read_elements(site.elements, crs, to_map, UNIT_TO_M[site.drawing_unit]) if site.elements else None
     for w in seen:
         caught.append(str(w.message))
         warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
-    pieces = split_by_assets([z for r in results for z in r.zones], site.basis, to_map, layer) if layer else []
-    return RunResult(site, results, to_map, crs, map_fit, started, warnings=caught,
-                     element_areas=layer.areas_m2 if layer else {}, asset_pieces=pieces, map_scale=scale)
+    return finish_site(site, results, started, caught)

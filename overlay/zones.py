@@ -42,7 +42,7 @@ ZONE_FIELDS = (
     "n_points", "ver_max_db", "ver_mean_db", "peak_hz", "peak_spread", "depth_low_m", "depth_high_m",
     "footprint_area_m2", "footprint_length_m", "footprint_width_m", "volume_low_m3", "volume_high_m3",
     "confidence", "conf_support", "conf_contrast", "conf_coherence", "conf_quality",
-    "station_m", "offset_m", "station_from_m", "station_to_m", "surveyed",
+    "station_m", "offset_m", "station_from_m", "station_to_m", "surveyed", "provenance",
 )
 
 
@@ -99,6 +99,7 @@ class Zone:
     offset_m: float = float("nan")
     station_from_m: float = float("nan")
     station_to_m: float = float("nan")
+    provenance: str = ""  # the per-scan zones a mosaic zone was united from
     spectrum: np.ndarray | None = None  # the zone's averaged band PSD, (m/s)^2/Hz
 
     def record(self) -> dict[str, object]:

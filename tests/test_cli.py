@@ -30,7 +30,10 @@ def site(tmp_path: Path) -> Path:
 
 
 def _files(folder: Path) -> list[Path]:
-    return sorted(p for p in folder.rglob("*") if p.is_file()) if folder.exists() else []
+    """Output files (the per-scan cache left aside)."""
+    if not folder.exists():
+        return []
+    return sorted(p for p in folder.rglob("*") if p.is_file() and ".overlay-cache" not in p.parts)
 
 
 def test_run_writes_outputs_and_refuses_to_overwrite(site: Path, tmp_path: Path, capsys: pytest.CaptureFixture) -> None:

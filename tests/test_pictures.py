@@ -43,7 +43,7 @@ def test_every_picture_is_written_with_its_size(written: dict) -> None:
     result = written["result"]
     names = {p.stem for p in folder.glob("*.png")}
     assert names == {"site-map", "dxf-preview"} | {f"scan-{s.scan_id}" for s in result.scans} | {
-        f"zone-{z.zone_id}" for z in result.zones}
+        f"zone-{z.zone_id}" for s in result.scans for z in s.zones}
     for p in folder.glob("*.png"):
         data = p.read_bytes()
         assert len(data) > 5000, p.name

@@ -9,7 +9,7 @@ from tqdm import tqdm
 
 from ..merge import merge_findings
 from ..outputs import write_outputs
-from ..pipeline import RunResult, run_site
+from ..campaign import run_campaign, summary
 from ..report import run_report
 from ..site import Site
 
@@ -21,37 +21,50 @@ def add_output_options(p: argparse.ArgumentParser, default_out: str) -> None:
                    help="go on when a target fit exceeds the tolerance (recorded in the outputs)")
     p.add_argument("-q", "--quiet", action="store_true", help="print only the output paths")
     p.add_argument("--no-pictures", action="store_true", help="skip the previews, zone sheets and HTML site report")
+    p.add_argument("-j", "--jobs", type=int, default=1, metavar="N", help="scans processed in N parallel processes (default 1)")
+    p.add_argument("--dask", metavar="ADDRESS", default=None,
+                   help="run the scans on the Dask scheduler at ADDRESS (optional extra 'dask')")
+    p.add_argument("--cache", metavar="DIR", type=Path, default=None,
+                   help="cache of per-scan results (default: OUT/.overlay-cache); reruns recompute changed scans only")
+    p.add_argument("--no-cache", action="store_true", help="recompute every scan and keep no cache")
+    p.add_argument("--strict", action="store_true", help="stop at the first scan that fails (default: report it, go on)")
     p.add_argument("--no-merge", action="store_true",
                    help="do not write findings into the owner's asset GeoPackage even if the site file says so")
 
 
-def run_and_write(site: Site, out: Path, *, overwrite: bool, quiet: bool, merge: bool = True, pictures: bool = True
-                  ) -> tuple[RunResult, dict[str, Path]]:
-    """Process the site with a progress bar (on a terminal only), write outputs, print the report."""
-    hide = True if quiet else None  # None: tqdm shows bars on a terminal only
+def run_and_write(site: Site, out: Path, args: argparse.Namespace, *, overwrite: bool) -> int:
+    """Process the site (in parallel, cached), write outputs, print the report and the summary; exit code."""
+    hide = True if args.quiet else None  # None: tqdm shows bars on a terminal only
     scans = tqdm(total=len(site.scans), desc="scans ", unit="scan", disable=hide, file=sys.stderr, position=0)
-    points = tqdm(total=0, desc="points", unit="pt", disable=hide, file=sys.stderr, position=1, unit_scale=True)
+    single = args.jobs <= 1 and not args.dask
+    points = tqdm(total=0, desc="points", unit="pt", disable=hide if single else True, file=sys.stderr, position=1,
+                  unit_scale=True)
 
-    def on_scan(scan_id: str, n_points: int) -> None:
-        scans.set_postfix_str(scan_id)
+    def on_done(scan_id: str, how: str) -> None:
+        scans.set_postfix_str(f"{scan_id} {how}")
         scans.update(1)
-        points.total = (points.total or 0) + n_points
-        points.refresh()
 
+    cache = None if args.no_cache else (args.cache or out / ".overlay-cache")
     try:
-        result = run_site(site, on_scan=on_scan, progress=points.update)
+        c = run_campaign(site, jobs=args.jobs, dask_address=args.dask, cache_dir=cache, strict=args.strict,
+                         on_done=on_done, progress=points.update if single else None)
     finally:
         points.close()
         scans.close()
-    paths = write_outputs(result, out, overwrite=overwrite, pictures=pictures)
-    if not quiet:
-        print(run_report(result))
+    for f in c.failures:  # one line per failed scan, as for any error
+        print(f"overlay: error: {f.message}", file=sys.stderr)
+    if c.result is None:
+        return c.exit_code or 3
+    paths = write_outputs(c.result, out, overwrite=overwrite, pictures=not args.no_pictures)
+    if not args.quiet:
+        print(run_report(c.result))
     print("written:")
     for p in paths.values():
         print(f"  {p}")
-    if site.merge is not None and merge:
-        m = merge_findings(result)
+    if site.merge is not None and not args.no_merge:
+        m = merge_findings(c.result)
         print(f"merged into {m.target} layer {m.layer}: {m.added} row(s) of this run"
               f" ({m.replaced} earlier row(s) of the same scans replaced, {m.kept} other row(s) kept)"
               + (f"; backup {m.backup}" if m.backup else ""))
-    return result, paths
+    print(summary(c))
+    return c.exit_code

@@ -26,5 +26,4 @@ def execute(args: argparse.Namespace) -> int:
     site = read_site(site_path)
     if args.accept_misfit:
         site.accept_misfit = True
-    run_and_write(site, out / "results", overwrite=True, quiet=args.quiet, merge=not args.no_merge, pictures=not args.no_pictures)
-    return 0
+    return run_and_write(site, out / "results", args, overwrite=True)

@@ -22,5 +22,4 @@ def execute(args: argparse.Namespace) -> int:
     site = read_site(args.site)
     if args.accept_misfit:
         site.accept_misfit = True
-    run_and_write(site, args.out, overwrite=args.overwrite, quiet=args.quiet, merge=not args.no_merge, pictures=not args.no_pictures)
-    return 0
+    return run_and_write(site, args.out, args, overwrite=args.overwrite)

@@ -1,0 +1,204 @@
+"""Campaigns: many scans in one run, in parallel processes or on a Dask cluster, with a cache.
+
+Scans are independent: each is read and processed on its own (``pipeline.scan_entry``); a scan
+that fails is reported with its error and the others go on, unless ``strict``.  Results come back
+in the order of the site file whatever the worker count, so the mosaic and every id are the same
+for any ``jobs`` and for Dask.  A cache keyed by each bundle's bytes and by the settings that shape
+a scan's result lets a rerun recompute only the scans that changed.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import pickle
+import time
+import warnings
+from concurrent.futures import ProcessPoolExecutor
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Callable, Iterable
+
+from . import __version__
+from .errors import OverlayError, UsageError
+from .pipeline import RunResult, ScanResult, finish_site, now_utc, scan_entry
+from .site import ScanEntry, Site
+
+BUNDLE_FILES = ("scan.toml", "points.csv", "records.npy", "spectra.npy", "frequencies.npy")
+
+
+@dataclass(frozen=True)
+class Failure:
+    bundle: Path
+    message: str
+    exit_code: int
+
+
+@dataclass
+class CampaignResult:
+    result: RunResult | None
+    failures: list[Failure] = field(default_factory=list)
+    computed: list[str] = field(default_factory=list)
+    cached: list[str] = field(default_factory=list)
+    seconds: float = 0.0
+
+    @property
+    def exit_code(self) -> int:
+        return self.failures[0].exit_code if self.failures else 0
+
+
+def bundle_digest(folder: Path) -> str:
+    """Hash of the bytes of every file of the bundle (read in 8 MB blocks)."""
+    h = hashlib.blake2b(digest_size=20)
+    for name in BUNDLE_FILES:
+        p = folder / name
+        if not p.exists():
+            continue
+        h.update(name.encode())
+        with p.open("rb") as fh:
+            for block in iter(lambda: fh.read(8 << 20), b""):
+                h.update(block)
+    return h.hexdigest()
+
+
+def settings_digest(site: Site, entry: ScanEntry) -> str:
+    """Hash of what, besides the bundle, shapes one scan's result (not outputs, map or merge)."""
+    shaping = {
+        "version": __version__,
+        "unit": site.drawing_unit, "tolerance": site.tolerance, "accept": site.accept_misfit, "model": site.model,
+        "reference": site.reference, "percentile": site.percentile, "incidence": site.incidence_correction,
+        "min_level": site.min_signal_level, "min_snr": site.min_snr_db, "min_area": site.min_area_m2,
+        "classes": [(c.name, c.threshold_db) for c in site.classes], "concrete": repr(site.concrete),
+        "repair": (site.margin_m, site.footprint, site.basis), "control": sorted(site.control_points.items()),
+        "entry": repr({k: v for k, v in vars(entry).items() if k != "bundle"}),
+    }
+    return hashlib.blake2b(json.dumps(shaping, sort_keys=True, default=str).encode(), digest_size=20).hexdigest()
+
+
+def _work(entry: ScanEntry, site: Site, progress: Callable[[int], None] | None = None
+          ) -> tuple[ScanResult | None, Failure | None, list[str]]:
+    """One scan in a worker: its result or its failure, and the warnings it raised."""
+    with warnings.catch_warnings(record=True) as seen:
+        warnings.simplefilter("always")
+        try:
+            result, failure = scan_entry(entry, site, progress), None
+        except OverlayError as exc:
+            result, failure = None, Failure(entry.bundle, exc.line(), exc.exit_code)
+        except Exception as exc:  # a bug in one scan must not lose the others
+            result, failure = None, Failure(entry.bundle, f"unexpected {type(exc).__name__}: {exc}", 1)
+    return result, failure, [str(w.message) for w in seen]
+
+
+def _map_local(entries: list[ScanEntry], site: Site, jobs: int, progress: Callable[[int], None] | None
+               ) -> Iterable[tuple[Any, ...]]:
+    if jobs <= 1:
+        return (_work(e, site, progress) for e in entries)
+    pool = ProcessPoolExecutor(max_workers=jobs)
+    futures = [pool.submit(_work, e, site) for e in entries]
+
+    def results() -> Iterable[tuple[Any, ...]]:
+        try:
+            for f in futures:
+                yield f.result()
+        finally:
+            pool.shutdown(wait=True, cancel_futures=True)
+    return results()
+
+
+def _map_dask(entries: list[ScanEntry], site: Site, address: str) -> Iterable[tuple[Any, ...]]:
+    try:
+        from dask.distributed import Client
+    except ImportError as exc:
+        raise UsageError("--dask needs the optional extra: pip install 'overlay[dask]'") from exc
+    with Client(address, timeout="20s") as client:
+        futures = client.map(_work, entries, site=site, pure=False)
+        for f in futures:
+            yield f.result()
+
+
+def run_campaign(
+    site: Site,
+    *,
+    jobs: int = 1,
+    dask_address: str | None = None,
+    cache_dir: Path | None = None,
+    strict: bool = False,
+    on_done: Callable[[str, str], None] | None = None,
+    progress: Callable[[int], None] | None = None,
+) -> CampaignResult:
+    """Process every scan of the site; failures are collected (or raised at once with ``strict``)."""
+    t0 = time.perf_counter()
+    started = now_utc()
+    out = CampaignResult(None)
+    results: dict[int, ScanResult] = {}
+    caught: list[str] = []
+    todo: list[int] = []
+    keys: dict[int, Path] = {}
+    for k, entry in enumerate(site.scans):
+        if cache_dir is not None and entry.bundle.is_dir():
+            path = cache_dir / f"{bundle_digest(entry.bundle)}-{settings_digest(site, entry)}.pickle"
+            keys[k] = path
+            if path.is_file():
+                with path.open("rb") as fh:
+                    results[k] = pickle.load(fh)
+                out.cached.append(results[k].scan_id)
+                if on_done is not None:
+                    on_done(results[k].scan_id, "cached")
+                continue
+        todo.append(k)
+    entries = [site.scans[k] for k in todo]
+    if jobs < 1:
+        raise UsageError(f"--jobs must be at least 1, got {jobs}")
+    stream = _map_dask(entries, site, dask_address) if dask_address else _map_local(entries, site, jobs, progress)
+    for k, (result, failure, seen) in zip(todo, stream):
+        caught.extend(seen)
+        if failure is not None:
+            if strict:
+                raise _as_error(failure)
+            out.failures.append(failure)
+            if on_done is not None:
+                on_done(site.scans[k].bundle.name, "failed")
+            continue
+        results[k] = result
+        out.computed.append(result.scan_id)
+        if k in keys:
+            keys[k].parent.mkdir(parents=True, exist_ok=True)
+            tmp = keys[k].with_suffix(".part")
+            with tmp.open("wb") as fh:
+                pickle.dump(result, fh, protocol=pickle.HIGHEST_PROTOCOL)
+            os.replace(tmp, keys[k])
+        if on_done is not None:
+            on_done(result.scan_id, "done")
+    for w in caught:
+        warnings.warn(w, stacklevel=2)
+    ordered = [results[k] for k in sorted(results)]
+    if ordered:
+        out.result = finish_site(site, ordered, started, caught)
+    out.seconds = time.perf_counter() - t0
+    return out
+
+
+def summary(c: CampaignResult) -> str:
+    """The closing summary: scans computed, cached, failed; zones and area per class; time; the failures."""
+    lines = [f"scans: {len(c.computed)} computed, {len(c.cached)} from the cache, {len(c.failures)} failed "
+             f"({c.seconds:.1f} s)"]
+    if c.result is not None:
+        per: dict[str, list[float]] = {}
+        for z in c.result.zones:
+            per.setdefault(z.class_name, []).append(z.area_m2)
+        for zc in c.result.site.classes:
+            a = per.get(zc.name, [])
+            lines.append(f"  {zc.name:<10} {len(a):4d} zone(s) {sum(a):9.3f} m2 (class contours)")
+    if c.failures:
+        lines.append("failed scans:")
+        width = max(len(str(f.bundle)) for f in c.failures)
+        for f in c.failures:
+            lines.append(f"  {str(f.bundle):<{width}}  exit {f.exit_code}  {f.message}")
+    return "\n".join(lines)
+
+
+def _as_error(f: Failure) -> OverlayError:
+    err = OverlayError(f.message)
+    err.exit_code = f.exit_code
+    return err
