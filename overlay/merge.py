@@ -113,7 +113,10 @@ def merge_findings(result: "RunResult") -> MergeSummary:
             layers = {row[0] for row in pyogrio.list_layers(tmp)}
             old = pyogrio.read_dataframe(tmp, layer=layer) if layer in layers else None
             if old is not None and len(old):
-                mine = (old.get("source") == SOURCE) & old.get("scan_id").isin(scans)
+                # a row is this run's own when it came from us and from any scan of this run
+                # (mosaic zones list several scans, "S-101;S-106")
+                own_scan = old["scan_id"].fillna("").map(lambda v: bool(set(str(v).split(";")) & scans))
+                mine = (old["source"] == SOURCE) & own_scan
                 kept, replaced = old[~mine], int(mine.sum())
             else:
                 kept, replaced = None, 0
