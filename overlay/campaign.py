@@ -48,17 +48,36 @@ class CampaignResult:
         return self.failures[0].exit_code if self.failures else 0
 
 
-def bundle_digest(folder: Path) -> str:
-    """Hash of the bytes of every file of the bundle (read in 8 MB blocks)."""
+def file_digest(path: Path) -> str:
+    """Hash of a file's bytes (read in 8 MB blocks)."""
+    h = hashlib.blake2b(digest_size=20)
+    with path.open("rb") as fh:
+        for block in iter(lambda: fh.read(8 << 20), b""):
+            h.update(block)
+    return h.hexdigest()
+
+
+def bundle_digest(folder: Path, known: dict[str, list] | None = None) -> str:
+    """Hash of the bytes of every file of the bundle.
+
+    ``known`` (path → [size, mtime_ns, digest]) spares re-reading a file whose size and
+    modification time are what they were when it was last hashed; it is updated in place.
+    """
     h = hashlib.blake2b(digest_size=20)
     for name in BUNDLE_FILES:
         p = folder / name
         if not p.exists():
             continue
-        h.update(name.encode())
-        with p.open("rb") as fh:
-            for block in iter(lambda: fh.read(8 << 20), b""):
-                h.update(block)
+        st = p.stat()
+        key = str(p.resolve())
+        hit = known.get(key) if known is not None else None
+        if hit is not None and hit[0] == st.st_size and hit[1] == st.st_mtime_ns:
+            digest = hit[2]
+        else:
+            digest = file_digest(p)
+            if known is not None:
+                known[key] = [st.st_size, st.st_mtime_ns, digest]
+        h.update(name.encode() + digest.encode())
     return h.hexdigest()
 
 
@@ -76,9 +95,11 @@ def settings_digest(site: Site, entry: ScanEntry) -> str:
     return hashlib.blake2b(json.dumps(shaping, sort_keys=True, default=str).encode(), digest_size=20).hexdigest()
 
 
-def _work(entry: ScanEntry, site: Site, progress: Callable[[int], None] | None = None
+def _work(entry: ScanEntry, site: Site, progress: Callable[[int], None] | None = None, single_thread: bool = False
           ) -> tuple[ScanResult | None, Failure | None, list[str]]:
     """One scan in a worker: its result or its failure, and the warnings it raised."""
+    if single_thread:
+        _one_thread()
     with warnings.catch_warnings(record=True) as seen:
         warnings.simplefilter("always")
         try:
@@ -90,11 +111,39 @@ def _work(entry: ScanEntry, site: Site, progress: Callable[[int], None] | None =
     return result, failure, [str(w.message) for w in seen]
 
 
+INDEX = "digests.json"
+
+
+def _load_index(cache_dir: Path | None) -> dict[str, list]:
+    if cache_dir is None or not (cache_dir / INDEX).is_file():
+        return {}
+    try:
+        return json.loads((cache_dir / INDEX).read_text())
+    except (OSError, ValueError):
+        return {}  # a damaged index only costs re-hashing
+
+
+def _save_index(cache_dir: Path | None, known: dict[str, list]) -> None:
+    if cache_dir is None:
+        return
+    cache_dir.mkdir(parents=True, exist_ok=True)
+    tmp = cache_dir / (INDEX + ".part")
+    tmp.write_text(json.dumps(known))
+    os.replace(tmp, cache_dir / INDEX)
+
+
+def _one_thread() -> None:
+    """Worker processes share the cores already: one spectra thread each."""
+    from . import spectra
+
+    spectra.DEFAULT_THREADS = 1
+
+
 def _map_local(entries: list[ScanEntry], site: Site, jobs: int, progress: Callable[[int], None] | None
                ) -> Iterable[tuple[Any, ...]]:
     if jobs <= 1:
         return (_work(e, site, progress) for e in entries)
-    pool = ProcessPoolExecutor(max_workers=jobs)
+    pool = ProcessPoolExecutor(max_workers=jobs, initializer=_one_thread)
     futures = [pool.submit(_work, e, site) for e in entries]
 
     def results() -> Iterable[tuple[Any, ...]]:
@@ -112,9 +161,9 @@ def _map_dask(entries: list[ScanEntry], site: Site, address: str) -> Iterable[tu
     except ImportError as exc:
         raise UsageError("--dask needs the optional extra: pip install 'overlay[dask]'") from exc
     with Client(address, timeout="20s") as client:
-        futures = client.map(_work, entries, site=site, pure=False)
-        for f in futures:
-            yield f.result()
+        shared = client.scatter(site, broadcast=True)  # sent once, not with every task
+        futures = client.map(_work, entries, site=shared, single_thread=True, pure=False)
+        yield from client.gather(futures)
 
 
 def run_campaign(
@@ -135,9 +184,10 @@ def run_campaign(
     caught: list[str] = []
     todo: list[int] = []
     keys: dict[int, Path] = {}
+    known = _load_index(cache_dir)
     for k, entry in enumerate(site.scans):
         if cache_dir is not None and entry.bundle.is_dir():
-            path = cache_dir / f"{bundle_digest(entry.bundle)}-{settings_digest(site, entry)}.pickle"
+            path = cache_dir / f"{bundle_digest(entry.bundle, known)}-{settings_digest(site, entry)}.pickle"
             keys[k] = path
             if path.is_file():
                 with path.open("rb") as fh:
@@ -147,6 +197,7 @@ def run_campaign(
                     on_done(results[k].scan_id, "cached")
                 continue
         todo.append(k)
+    _save_index(cache_dir, known)
     entries = [site.scans[k] for k in todo]
     if jobs < 1:
         raise UsageError(f"--jobs must be at least 1, got {jobs}")

@@ -23,7 +23,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 import shapely
 
-from .zones import Zone, order_key, repair_footprint
+from .zones import Zone, order_key, parent_finder, repair_footprint
 
 if TYPE_CHECKING:
     from .site import Site
@@ -101,7 +101,7 @@ def _unite(parts: list[Zone], site: "Site", unit_m: float) -> Zone:
 def mosaic_zones(zones: list[Zone], site: "Site", unit_m: float) -> list[Zone]:
     """Unite overlapping zones of each class across scans; nested classes keep their lowest-class defect."""
     out: list[Zone] = []
-    parents: list[Zone] = []
+    find = parent_finder([])
     for k, zc in enumerate(site.classes):
         mine = [z for z in zones if z.class_name == zc.name]
         united = sorted((_unite(g, site, unit_m) for g in _groups(mine)) if mine else [],
@@ -110,7 +110,7 @@ def mosaic_zones(zones: list[Zone], site: "Site", unit_m: float) -> list[Zone]:
             if k == 0:
                 z.defect_id = z.zone_id
             else:
-                parent = next((p for p in parents if p.contour.buffer(1e-9).contains(z.contour.representative_point())), None)
+                parent = find(z.contour)
                 if parent is not None:
                     z.defect_id, z.defect, z.outline_area_m2 = parent.defect_id, parent.defect, parent.outline_area_m2
                     z.depth_low_m, z.depth_high_m = parent.depth_low_m, parent.depth_high_m
@@ -119,6 +119,6 @@ def mosaic_zones(zones: list[Zone], site: "Site", unit_m: float) -> list[Zone]:
                     z.footprint_length_m, z.footprint_width_m = parent.footprint_length_m, parent.footprint_width_m
                     z.volume_low_m3, z.volume_high_m3 = parent.volume_low_m3, parent.volume_high_m3
         if k == 0:
-            parents = united
+            find = parent_finder(united)
         out.extend(united)
     return out

@@ -40,6 +40,7 @@ from .zones import (
     defect_outline,
     depth_range,
     order_key,
+    parent_finder,
     point_stats,
     repair_footprint,
 )
@@ -237,7 +238,7 @@ def process_scan(
     zone_psd = _zone_psd_source(scan, gate)
     band_freqs, healthy = _healthy_spectrum(zone_psd, ver, valid)
     zones: list[Zone] = []
-    parents: list[Zone] = []
+    find_parent = parent_finder([])
     lower = None
     for ci, zc in enumerate(site.classes):
         contours = _class_contours(grid, values, zc.threshold_db, scan_area, to_drawing, spacing_d, lower,
@@ -246,11 +247,11 @@ def process_scan(
         for k, contour in enumerate(contours, start=1):
             zone = _build_zone(f"{scan.scan_id}.{zc.name}.{k:02d}", scan.scan_id, element, zc.name, zc.threshold_db,
                                contour, surveyed, point_xy, ver, peak, snr, valid, spacing_d, extent, u, zone_psd)
-            parent = next((p for p in parents if p.contour.buffer(1e-9).contains(contour.representative_point())), None)
+            parent = find_parent(contour)
             _attach_repair(zone, parent, site, extent, u)
             built.append(zone)
         if ci == 0:
-            parents = built
+            find_parent = parent_finder(built)
         zones.extend(built)
         lower = shapely.union_all([z.contour for z in built]) if built else Polygon()
     return ScanResult(

@@ -22,6 +22,7 @@ import scipy.signal
 
 from .gate import Gate
 
+DEFAULT_THREADS: int | None = None  # None: one per core; campaign workers set 1
 DEFAULT_CHUNK = 512  # points per chunk: small enough to stay in cache, measured fastest (docs/performance.md)
 
 
@@ -239,7 +240,7 @@ def records_spectra(
     and the FFT release the GIL, and results do not depend on the count.
     """
     n_points = records.shape[0]
-    threads = threads or os.cpu_count() or 1
+    threads = threads or DEFAULT_THREADS or os.cpu_count() or 1
     plan = _plan(gate, band_hz, velocity_scale, fft_workers=1 if threads > 1 else (os.cpu_count() or 1))
     energy = np.full(n_points, np.nan)
     peak = np.full(n_points, np.nan)

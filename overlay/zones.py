@@ -203,6 +203,19 @@ def repair_footprint(outline: Polygon, margin: float, mode: str = "aligned") -> 
     return rect, float(sides.max()), float(sides.min())
 
 
+def parent_finder(parents: list[Zone]):
+    """A function giving the zone of ``parents`` whose contour covers a geometry's representative point."""
+    tree = shapely.STRtree([p.contour for p in parents]) if parents else None
+
+    def find(geom: Polygon) -> Zone | None:
+        if tree is None:
+            return None
+        hits = tree.query(geom.representative_point(), predicate="intersects")
+        return parents[int(min(hits))] if len(hits) else None
+
+    return find
+
+
 def order_key(poly: Polygon) -> tuple[float, float]:
     """Sort zones by centroid position (rounded) so their numbers do not depend on contour order."""
     c = poly.centroid
