@@ -124,9 +124,8 @@ def _load_index(cache_dir: Path | None) -> dict[str, list]:
 
 
 def _save_index(cache_dir: Path | None, known: dict[str, list]) -> None:
-    if cache_dir is None:
+    if cache_dir is None or not cache_dir.is_dir():  # no result was cached: leave no trace
         return
-    cache_dir.mkdir(parents=True, exist_ok=True)
     tmp = cache_dir / (INDEX + ".part")
     tmp.write_text(json.dumps(known))
     os.replace(tmp, cache_dir / INDEX)
@@ -197,7 +196,6 @@ def run_campaign(
                     on_done(results[k].scan_id, "cached")
                 continue
         todo.append(k)
-    _save_index(cache_dir, known)
     entries = [site.scans[k] for k in todo]
     if jobs < 1:
         raise UsageError(f"--jobs must be at least 1, got {jobs}")
@@ -221,6 +219,7 @@ def run_campaign(
             os.replace(tmp, keys[k])
         if on_done is not None:
             on_done(result.scan_id, "done")
+    _save_index(cache_dir, known)
     for w in caught:
         warnings.warn(w, stacklevel=2)
     ordered = [results[k] for k in sorted(results)]

@@ -13,6 +13,8 @@ else:  # pragma: no cover - exercised only on 3.10
 
 from .errors import OverlayError
 
+__all__ = ["Fields", "load_toml", "tomllib"]
+
 
 def load_toml(path: Path, error: type[OverlayError]) -> dict[str, Any]:
     """Parse ``path``; a missing file or a syntax error becomes ``error`` naming the file."""

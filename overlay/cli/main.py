@@ -14,9 +14,9 @@ from typing import Sequence
 
 from .. import __version__
 from ..errors import EXIT_UNEXPECTED, EXIT_USAGE, OverlayError, OverlayWarning
-from . import demo, describe, exporters, run
+from . import demo, describe, exporters, importing, run
 
-COMMANDS = (run, demo, describe, exporters)
+COMMANDS = (run, demo, describe, importing, exporters)
 
 EPILOG = """exit codes: 0 done, 1 unexpected error, 2 usage, 3 bad input (bundle, site file, records),
 4 registration or CRS check failed, 5 output conflict (would overwrite or clash)"""

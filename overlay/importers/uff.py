@@ -1,0 +1,153 @@
+"""Universal File Format importer (read with pyuff): nodes from datasets 15 / 2411, function data
+from dataset 58 (time responses or power spectral densities) → a scan bundle.
+
+Dataset 58 fields used (record R, field F, as pyuff names them): function type (R6 F1), response
+node and direction (R6 F6, F7), abscissa spacing, minimum and increment (R7 F3–F5), ordinate
+units label (R9 F6), and the data.  Only the response direction normal to the surface is taken
+(``direction``, default 3 = Z).  Function type codes used: 1 time response, 9 power spectral
+density (from memory of the dataset 58 description — checked against pyuff's writer in the tests).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from ..errors import BundleError
+from ..grid import infer_grid
+from . import Imported
+
+TIME, PSD = 1, 9
+VELOCITY = {"m/s": 1.0, "mm/s": 1e-3}
+LENGTH = {"m": 1.0, "mm": 1e-3}
+
+
+def _label(rec: dict) -> str:
+    return str(rec.get("ordinate_axis_units_lab", "") or "").strip().lower()
+
+
+def grid_indices(xy: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
+    """row/col of nodes forming a (possibly rotated) regular grid, found along their principal axes."""
+    c = xy - xy.mean(axis=0)
+    _, _, vt = np.linalg.svd(c, full_matrices=False)
+    for basis in (np.eye(2), vt.T):
+        g = infer_grid(np.round(c @ basis, 9))
+        if g is not None:
+            r, q = np.nonzero(g.index >= 0)
+            rows = np.empty(len(xy), dtype=np.int64)
+            cols = np.empty(len(xy), dtype=np.int64)
+            rows[g.index[r, q]], cols[g.index[r, q]] = r, q
+            return rows, cols
+    return None
+
+
+class UffImporter:
+    name = "uff"
+    description = "Universal File Format: nodes (datasets 15, 2411) and function data (dataset 58), via pyuff"
+
+    def read(self, paths: list[Path], options: dict[str, Any]) -> Imported:
+        import pyuff
+
+        sets: list[tuple[Path, int, dict]] = []
+        for p in paths:
+            if not p.is_file():
+                raise BundleError("file not found", source=p)
+            try:
+                data = pyuff.UFF(str(p)).read_sets()
+            except Exception as exc:  # pyuff raises plain exceptions for malformed files
+                raise BundleError(f"not a readable Universal File ({exc})", source=p) from exc
+            data = data if isinstance(data, list) else [data]
+            sets += [(p, k, d) for k, d in enumerate(data)]
+        direction = int(options.get("direction", 3))
+        length = LENGTH[options.get("length_unit", "m")]
+        nodes: dict[int, tuple[float, float]] = {}
+        for p, k, d in sets:
+            if d.get("type") in (15, 2411):
+                for n, x, y in zip(d["node_nums"], d["x"], d["y"]):
+                    n = int(n)
+                    if n in nodes:
+                        raise BundleError(f"node {n} defined twice", source=p, field=f"dataset {d['type']} (set {k})")
+                    nodes[n] = (float(x) * length, float(y) * length)
+        if not nodes:
+            raise BundleError("no node coordinates (datasets 15 or 2411)", source=paths[0])
+        funcs = [(p, k, d) for p, k, d in sets if d.get("type") == 58 and abs(int(d.get("rsp_dir", 0))) == direction]
+        if not funcs:
+            raise BundleError(f"no dataset 58 with response direction {direction}", source=paths[0])
+        kinds = {int(d["func_type"]) for _, _, d in funcs}
+        if not kinds <= {TIME, PSD} or len(kinds) != 1:
+            raise BundleError(f"function types {sorted(kinds)}: one kind is needed, {TIME} (time response) or "
+                              f"{PSD} (power spectral density)", source=funcs[0][0], field="dataset 58 R6 F1")
+        kind = kinds.pop()
+        labels = {_label(d) for _, _, d in funcs}
+        unit_opt = options.get("velocity_unit")
+        if len(labels) > 1:
+            raise BundleError(f"mixed ordinate units {sorted(labels)} among the function records", source=funcs[0][0],
+                              field="dataset 58 R9 F6")
+        label = labels.pop() if labels else ""
+        psd_unit = label.replace("^2/hz", "").replace("2/hz", "").replace("²/hz", "").strip("() ")
+        unit = unit_opt or (label if kind == TIME else psd_unit)
+        if unit not in VELOCITY:
+            raise BundleError(f"ordinate unit {label!r} is not a velocity this importer knows (m/s, mm/s); "
+                              "give --velocity-unit", source=funcs[0][0], field="dataset 58 R9 F6")
+        scale = VELOCITY[unit] if kind == TIME else VELOCITY[unit] ** 2
+        spacing = {(int(d.get("abscissa_spacing", 1)), float(d["abscissa_min"]), float(d["abscissa_inc"]), len(d["data"]))
+                   for _, _, d in funcs}
+        if any(s[0] != 1 for s in spacing):
+            raise BundleError("uneven abscissa spacing; only evenly spaced function data can be imported",
+                              source=funcs[0][0], field="dataset 58 R7 F3")
+        if len(spacing) > 1:
+            raise BundleError(f"inconsistent abscissa among the function records: {sorted(spacing)[:3]}",
+                              source=funcs[0][0], field="dataset 58 R7 F4/F5")
+        _, x0, inc, m = spacing.pop()
+        ids = sorted(nodes)
+        pos = {n: i for i, n in enumerate(ids)}
+        values = np.zeros((len(ids), m), dtype=np.float64)
+        have = np.zeros(len(ids), dtype=bool)
+        dropped: list[str] = []
+        for p, k, d in funcs:
+            n = int(d["rsp_node"])
+            if n not in pos:
+                raise BundleError(f"response node {n} has no coordinates", source=p, field=f"dataset 58 (set {k}) R6 F6")
+            if have[pos[n]]:
+                raise BundleError(f"second record for node {n}, direction {direction}", source=p, field=f"dataset 58 (set {k})")
+            v = np.real(np.asarray(d["data"], dtype=np.complex128))
+            if not np.isfinite(v).all():
+                if not options.get("allow_partial"):
+                    raise BundleError(f"non-finite values in the record of node {n} (use --allow-partial to drop it)",
+                                      source=p, field=f"dataset 58 (set {k}) R12")
+                dropped.append(f"node {n}: non-finite values")
+                continue
+            values[pos[n]] = v * scale
+            have[pos[n]] = True
+        xy = np.array([nodes[n] for n in ids])
+        grid = grid_indices(xy)
+        out = Imported(
+            scan_id=str(options.get("scan_id") or paths[0].stem), ids=[f"N{n}" for n in ids], xy=xy, valid=have,
+            row=grid[0] if grid else None, col=grid[1] if grid else None,
+            band_hz=tuple(options.get("band_hz") or (400.0, 8000.0)), dropped=dropped,
+        )
+        if kind == TIME:
+            out.records, out.sample_rate_hz = values.astype(np.float32), 1.0 / inc
+            gate = options.get("gate_s")
+            out.gate_s = tuple(gate) if gate else (0.0, m * inc)
+        else:
+            out.spectra, out.frequencies = values, x0 + inc * np.arange(m)
+        out.found = [f"{len(ids)} nodes, {int(have.sum())} with a direction-{direction} record",
+                     f"grid: {'%d rows x %d cols' % (grid[0].max() + 1, grid[1].max() + 1) if grid else 'none (scattered nodes)'}",
+                     (f"time records of {m} samples at {1.0 / inc:g} Hz" if kind == TIME else
+                      f"PSD of {m} lines, {x0:g}..{x0 + inc * (m - 1):g} Hz"),
+                     f"ordinate unit {label or '(none)'} -> m/s"]
+        if "length_unit" not in options:
+            out.assumed.append("node coordinates in metres (--length-unit)")
+        if not options.get("band_hz"):
+            out.assumed.append("analysis band 400..8000 Hz (--band)")
+        if unit_opt is None and not label:
+            out.assumed.append("velocity unit m/s")
+        if kind == TIME and not options.get("gate_s"):
+            out.assumed.append(f"gate = the whole record, 0..{m * inc * 1e3:g} ms (--gate START END, seconds)")
+        missing = int((~have).sum()) - len(dropped)
+        if missing:
+            out.found.append(f"{missing} node(s) without function data: marked invalid")
+        return out
