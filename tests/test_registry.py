@@ -50,3 +50,24 @@ def test_broken_plugins_are_listed_and_the_good_one_still_loads() -> None:
     assert "failed to load: ModuleNotFoundError" in problems["missing"]
     assert "write" in problems["nowrite"]
     assert "calls itself 'other'" in problems["wrongname"]
+
+
+class GoodImporter:
+    name = "good-in"
+    description = "a test importer"
+
+    def read(self, paths, options):
+        raise NotImplementedError
+
+
+def test_importers_register_the_same_way_and_broken_ones_are_reported() -> None:
+    from overlay.importers import GROUP as IGROUP
+    from overlay.importers import load_importers
+
+    usable, broken = load_importers()
+    assert {"uff", "point-table", "ver-matrix"} <= set(usable) and broken == []
+    usable, broken = load_importers([EntryPoint("good-in", "tests.test_registry:GoodImporter", IGROUP),
+                                     EntryPoint("bad-in", "tests.test_registry:NoWrite", IGROUP),
+                                     EntryPoint("gone", "tests.nowhere:X", IGROUP)])
+    assert list(usable) == ["good-in"]
+    assert {b.name for b in broken} == {"bad-in", "gone"}

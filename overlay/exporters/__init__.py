@@ -9,13 +9,16 @@ others.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-from importlib.metadata import EntryPoint, entry_points
+from importlib.metadata import EntryPoint
 from pathlib import Path
 from typing import TYPE_CHECKING, Iterable, Protocol, runtime_checkable
 
+from ..plugins import Broken, load_group
+
 if TYPE_CHECKING:
     from ..pipeline import RunResult
+
+__all__ = ["GROUP", "Broken", "Exporter", "check_exporter", "load_exporters"]
 
 GROUP = "overlay.exporters"
 
@@ -32,15 +35,6 @@ class Exporter(Protocol):
         """Write the whole run to ``path`` (a temporary file the caller moves into place)."""
 
 
-@dataclass(frozen=True)
-class Broken:
-    """A plugin that could not be used, and why."""
-
-    name: str
-    target: str
-    problem: str
-
-
 def check_exporter(obj: object) -> str | None:
     """Why ``obj`` is not a usable exporter, or None if it is."""
     for attr in ("name", "suffix", "description"):
@@ -54,26 +48,13 @@ def check_exporter(obj: object) -> str | None:
     return None
 
 
+def _check(obj: object, name: str) -> str | None:
+    problem = check_exporter(obj)
+    if problem is None and getattr(obj, "name") != name:
+        problem = f"registered as {name!r} but calls itself {getattr(obj, 'name')!r}"
+    return problem
+
+
 def load_exporters(eps: Iterable[EntryPoint] | None = None) -> tuple[dict[str, Exporter], list[Broken]]:
     """Load every exporter of the group; return the usable ones by name and the broken ones."""
-    found = entry_points(group=GROUP) if eps is None else eps
-    usable: dict[str, Exporter] = {}
-    broken: list[Broken] = []
-    for ep in sorted(found, key=lambda e: e.name):
-        try:
-            obj = ep.load()
-            if isinstance(obj, type):
-                obj = obj()
-        except Exception as exc:  # a plugin's own failure must not stop the tool
-            broken.append(Broken(ep.name, ep.value, f"failed to load: {type(exc).__name__}: {exc}"))
-            continue
-        problem = check_exporter(obj)
-        if problem is None and obj.name != ep.name:
-            problem = f"registered as {ep.name!r} but calls itself {obj.name!r}"
-        if problem is None and ep.name in usable:
-            problem = "a second exporter with the same name"
-        if problem:
-            broken.append(Broken(ep.name, ep.value, problem))
-            continue
-        usable[ep.name] = obj  # type: ignore[assignment]
-    return usable, broken
+    return load_group(GROUP, _check, eps)

@@ -13,13 +13,14 @@ import os
 import shutil
 import tempfile
 from dataclasses import dataclass, field
-from importlib.metadata import EntryPoint, entry_points
+from importlib.metadata import EntryPoint
 from pathlib import Path
 from typing import Any, Iterable, Protocol, runtime_checkable
 
 import numpy as np
 
 from ..errors import OutputConflictError
+from ..plugins import Broken, load_group
 
 GROUP = "overlay.importers"
 
@@ -57,31 +58,16 @@ class Importer(Protocol):
         """Read the input files into one scan; raise BundleError (exit 3) on bad input."""
 
 
-@dataclass(frozen=True)
-class Broken:
-    name: str
-    target: str
-    problem: str
+def _check(obj: object, name: str) -> str | None:
+    if not all(isinstance(getattr(obj, a, None), str) for a in ("name", "description")) or not callable(
+            getattr(obj, "read", None)):
+        return "needs text name, description and a callable read(paths, options)"
+    return None
 
 
 def load_importers(eps: Iterable[EntryPoint] | None = None) -> tuple[dict[str, Importer], list[Broken]]:
     """Every importer of the group: the usable ones by name and the broken ones."""
-    found = entry_points(group=GROUP) if eps is None else eps
-    usable: dict[str, Importer] = {}
-    broken: list[Broken] = []
-    for ep in sorted(found, key=lambda e: e.name):
-        try:
-            obj = ep.load()
-            obj = obj() if isinstance(obj, type) else obj
-        except Exception as exc:  # a plugin's own failure must not stop the tool
-            broken.append(Broken(ep.name, ep.value, f"failed to load: {type(exc).__name__}: {exc}"))
-            continue
-        if not all(isinstance(getattr(obj, a, None), str) for a in ("name", "description")) or not callable(
-                getattr(obj, "read", None)):
-            broken.append(Broken(ep.name, ep.value, "needs text name, description and a callable read(paths, options)"))
-            continue
-        usable[ep.name] = obj
-    return usable, broken
+    return load_group(GROUP, _check, eps)
 
 
 def write_bundle(scan: Imported, folder: Path, *, overwrite: bool = False) -> Path:
