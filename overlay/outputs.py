@@ -105,7 +105,29 @@ def draw_pictures(result: "RunResult", dxf_path: Path | None) -> dict[str, bytes
     return images
 
 
-def write_outputs(result: "RunResult", out_dir: Path, *, overwrite: bool = False, pictures: bool = True) -> dict[str, Path]:
+def find_pdf_printer() -> str | None:
+    """A headless Chromium that can print the HTML report to PDF, if installed."""
+    import shutil
+
+    return shutil.which("chromium") or shutil.which("chromium-browser") or shutil.which("google-chrome")
+
+
+def print_pdf(html_path: Path, pdf_path: Path, browser: str) -> None:
+    """The HTML report printed to PDF by headless Chromium (no network, a throw-away profile)."""
+    import subprocess
+
+    with tempfile.TemporaryDirectory() as profile:
+        done = subprocess.run(
+            [browser, "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
+             "--disable-component-update", "--disable-sync", "--no-first-run", f"--user-data-dir={profile}",
+             "--no-pdf-header-footer", f"--print-to-pdf={pdf_path}", html_path.resolve().as_uri()],
+            capture_output=True, text=True, timeout=300, check=False)
+    if done.returncode != 0 or not pdf_path.exists():
+        raise ExporterError(f"PDF printing failed ({done.stderr.strip()[-300:]})", source=pdf_path)
+
+
+def write_outputs(result: "RunResult", out_dir: Path, *, overwrite: bool = False, pictures: bool = True,
+                  pdf: bool = False) -> dict[str, Path]:
     """Write every requested format, the reports and (by default) the pictures; all move into place
     together or none does."""
     from .report import run_report
@@ -118,6 +140,13 @@ def write_outputs(result: "RunResult", out_dir: Path, *, overwrite: bool = False
     if pictures:
         paths["html"] = out_dir / f"{result.site.basename}-report.html"
         pics = {n: folder / f"{n}.png" for n in picture_names(result, "dxf" in exporters)}
+    browser = find_pdf_printer() if pdf and pictures else None
+    if pdf and browser is None:
+        from .errors import UsageError
+
+        raise UsageError("--pdf needs a headless Chromium (Debian package chromium); the HTML report prints from any browser")
+    if browser:
+        paths["pdf"] = out_dir / f"{result.site.basename}-report.pdf"
     check_targets(list(paths.values()) + list(pics.values()), overwrite=overwrite)
     try:
         with staged(list(paths.values()) + list(pics.values())) as temps:
@@ -134,6 +163,8 @@ def write_outputs(result: "RunResult", out_dir: Path, *, overwrite: bool = False
                 for name, png in images.items():
                     temps[pics[name]].write_bytes(png)
                 temps[paths["html"]].write_text(site_report(result, images), encoding="utf-8")
+                if browser:
+                    print_pdf(temps[paths["html"]], temps[paths["pdf"]], browser)
     except BaseException:
         with contextlib.suppress(OSError):
             folder.rmdir()  # only if we left it empty

@@ -167,3 +167,13 @@ def test_report_loads_in_headless_chromium(written: dict, tmp_path: Path) -> Non
 def test_no_pictures_writes_none(demo: dict, tmp_path: Path) -> None:
     paths = write_outputs(demo["result"], tmp_path, pictures=False)
     assert "html" not in paths and not (tmp_path / f"{demo['result'].site.basename}-pictures").exists()
+
+
+def test_pdf_report_where_chromium_is_installed(demo: dict, tmp_path: Path) -> None:
+    from overlay.outputs import find_pdf_printer
+
+    if find_pdf_printer() is None:
+        pytest.skip("Chromium not installed")
+    paths = write_outputs(demo["result"], tmp_path, pdf=True)
+    data = paths["pdf"].read_bytes()
+    assert data[:5] == b"%PDF-" and len(data) > 50_000

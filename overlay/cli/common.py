@@ -21,6 +21,7 @@ def add_output_options(p: argparse.ArgumentParser, default_out: str) -> None:
                    help="go on when a target fit exceeds the tolerance (recorded in the outputs)")
     p.add_argument("-q", "--quiet", action="store_true", help="print only the output paths")
     p.add_argument("--no-pictures", action="store_true", help="skip the previews, zone sheets and HTML site report")
+    p.add_argument("--pdf", action="store_true", help="also print the site report to PDF (needs headless Chromium)")
     p.add_argument("-j", "--jobs", type=int, default=1, metavar="N", help="scans processed in N parallel processes (default 1)")
     p.add_argument("--dask", metavar="ADDRESS", default=None,
                    help="run the scans on the Dask scheduler at ADDRESS (optional extra 'dask')")
@@ -55,7 +56,7 @@ def run_and_write(site: Site, out: Path, args: argparse.Namespace, *, overwrite:
         print(f"overlay: error: {f.message}", file=sys.stderr)
     if c.result is None:
         return c.exit_code or 3
-    paths = write_outputs(c.result, out, overwrite=overwrite, pictures=not args.no_pictures)
+    paths = write_outputs(c.result, out, overwrite=overwrite, pictures=not args.no_pictures, pdf=args.pdf)
     if not args.quiet:
         print(run_report(c.result))
     print("written:")
