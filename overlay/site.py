@@ -394,29 +394,28 @@ def _alignment(doc: Fields) -> AlignmentSpec | None:
     a = doc.table_of("alignment")
     if a is None:
         return None
-    pts = a.raw("points")
-    ok = isinstance(pts, list) and len(pts) >= 2 and all(
-        isinstance(p, list) and len(p) == 2 and all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in p)
-        for p in pts)
-    if not ok:
-        raise a.fail("points", "must be a polyline: a list of at least 2 [x, y] pairs")
-    spec = AlignmentSpec(tuple((float(x), float(y)) for x, y in pts), a.choice("frame", ("drawing", "map"), default="drawing"),
-                         a.number("start_station_m", 0.0) or 0.0)
+    pts = _pairs(a, "points", 2, "a polyline")
+    assert pts is not None
+    spec = AlignmentSpec(pts, a.choice("frame", ("drawing", "map"), default="drawing"), a.number("start_station_m", 0.0) or 0.0)
     _warn_unknown(a)
     return spec
 
 
-def _region(t: Fields) -> tuple[tuple[float, float], ...] | None:
-    raw = t.raw("healthy_region")
+def _pairs(t: Fields, key: str, minimum: int, what: str) -> tuple[tuple[float, float], ...] | None:
+    """A list of at least ``minimum`` [x, y] number pairs, or None when absent."""
+    raw = t.raw(key)
     if raw is None:
         return None
-    ok = isinstance(raw, list) and len(raw) >= 3 and all(
+    ok = isinstance(raw, list) and len(raw) >= minimum and all(
         isinstance(p, list) and len(p) == 2 and all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in p)
-        for p in raw
-    )
+        for p in raw)
     if not ok:
-        raise t.fail("healthy_region", "must be a polygon: a list of at least 3 [x, y] pairs")
+        raise t.fail(key, f"must be {what}: a list of at least {minimum} [x, y] pairs")
     return tuple((float(x), float(y)) for x, y in raw)
+
+
+def _region(t: Fields) -> tuple[tuple[float, float], ...] | None:
+    return _pairs(t, "healthy_region", 3, "a polygon")
 
 
 def _map(doc: Fields) -> MapFrame | None:

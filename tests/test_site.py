@@ -30,6 +30,13 @@ def test_defaults_and_glob(tmp_path: Path) -> None:
         ('\n[energy]\nreference = "mean"\n', "energy.reference: must be one of"),
         ('\n[map]\ncrs = "EPSG:25832"\n', "map.origin: give either origin"),
         ('\n[outputs]\nbasename = "../x"\n', "outputs.basename"),
+        ('\n[alignment]\npoints = [[0, 0]]\n', "alignment.points: must be a polyline: a list of at least 2 [x, y] pairs"),
+        ('\n[dxf]\nbase = "nope.dxf"\n', "dxf.base: file not found"),
+        ('\n[dxf]\ncolours = { watch = 300 }\n', "dxf.colours"),
+        ('\n[merge]\nfindings_layer = "x"\n', "merge: needs [elements]"),
+        ('\n[concrete]\nfc_mpa = 30\nmodulus_gpa = 30\n', "give modulus_gpa or fc_mpa"),
+        ('\n[repair]\nfootprint = "round"\n', "repair.footprint: must be one of"),
+        ('\n[quality]\nmin_signal_level = 2\n', "quality.min_signal_level: must lie in 0..1"),
     ],
 )
 def test_bad_fields(tmp_path: Path, extra: str, fragment: str) -> None:
