@@ -201,3 +201,20 @@ def test_ver_matrix(tmp_path: Path) -> None:
     path.write_text("0,1\n3\n")
     with pytest.raises(BundleError, match="line 2: has 1 values, the first row has 2"):
         MatrixTableImporter().read([path], {"spacing": 0.1})
+
+
+def test_curvilinear_grid_recovered_from_a_declared_shape(tmp_path: Path) -> None:
+    # nodes on a gently curved lining (rows bend): not a regular grid, so no row/col by themselves;
+    # with --grid-shape the node-number order fills the rows, and the check accepts it
+    rr, cc = np.mgrid[0:6, 0:8]
+    u = cc.ravel() * 0.1
+    xy = np.column_stack([u, rr.ravel() * 0.1 + 0.05 * np.sin(3 * u)])
+    rec = np.random.default_rng(1).normal(0, 1e-4, (len(xy), 256))
+    path = tmp_path / "curved.uff"
+    _write_uff(path, xy, rec, unit="m/s", scale=1.0)
+    plain = UffImporter().read([path], {})
+    assert plain.row is None
+    shaped = UffImporter().read([path], {"grid_shape": (6, 8)})
+    assert shaped.row.tolist() == rr.ravel().tolist() and shaped.col.tolist() == cc.ravel().tolist()
+    with pytest.raises(BundleError, match="do not form a 8 x 6 grid"):
+        UffImporter().read([path], {"grid_shape": (8, 6)})

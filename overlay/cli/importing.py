@@ -25,6 +25,8 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--band", nargs=2, type=float, metavar=("LOW", "HIGH"), help="analysis band, Hz (default 400 8000)")
     p.add_argument("--gate", nargs=2, type=float, metavar=("START", "END"), help="gate in seconds (time records)")
     p.add_argument("--direction", type=int, default=3, help="UFF response direction normal to the surface (default 3 = Z)")
+    p.add_argument("--grid-shape", nargs=2, type=int, metavar=("ROWS", "COLS"),
+                   help="UFF: the nodes, in node-number order, fill a (curvilinear) grid row by row; checked")
     p.add_argument("--length-unit", choices=("m", "mm"), help="unit of the input coordinates (default m, said if assumed)")
     p.add_argument("--velocity-unit", choices=("m/s", "mm/s"), help="when the file does not say its velocity unit")
     p.add_argument("--map", action="append", default=[], metavar="KEY=COLUMN",
@@ -68,6 +70,7 @@ def execute(args: argparse.Namespace) -> int:
     options = {k: v for k, v in {
         "scan_id": args.scan_id, "band_hz": tuple(args.band) if args.band else None,
         "gate_s": tuple(args.gate) if args.gate else None, "direction": args.direction,
+        "grid_shape": tuple(args.grid_shape) if args.grid_shape else None,
         "length_unit": args.length_unit, "velocity_unit": args.velocity_unit, "columns": _columns(args),
         "origin": tuple(args.origin) if args.origin else None, "spacing": args.spacing,
         "allow_partial": args.allow_partial}.items() if v not in (None, {}, False)}

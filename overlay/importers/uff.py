@@ -28,6 +28,26 @@ def _label(rec: dict) -> str:
     return str(rec.get("ordinate_axis_units_lab", "") or "").strip().lower()
 
 
+def declared_grid(xy: np.ndarray, shape: tuple[int, int], source: Path) -> tuple[np.ndarray, np.ndarray]:
+    """row/col of a curvilinear grid whose nodes, in node-number order, fill ``shape`` row by row.
+
+    Checked, not trusted: every step to a row or column neighbour must be within 3× the median
+    step, else the declared shape does not fit the nodes.
+    """
+    rows, cols = shape
+    if rows * cols != len(xy):
+        raise BundleError(f"grid shape {rows} x {cols} = {rows * cols} nodes, the file has {len(xy)}", source=source,
+                          field="--grid-shape")
+    g = xy.reshape(rows, cols, 2)
+    steps = np.concatenate([np.hypot(*np.diff(g, axis=0).reshape(-1, 2).T), np.hypot(*np.diff(g, axis=1).reshape(-1, 2).T)])
+    med = float(np.median(steps))
+    if not med > 0 or steps.max() > 3 * med or steps.min() < med / 3:
+        raise BundleError(f"nodes in node-number order do not form a {rows} x {cols} grid (steps {steps.min():.4g}.."
+                          f"{steps.max():.4g}, median {med:.4g})", source=source, field="--grid-shape")
+    rr, cc = np.mgrid[0:rows, 0:cols]
+    return rr.ravel(), cc.ravel()
+
+
 def grid_indices(xy: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
     """row/col of nodes forming a (possibly rotated) regular grid, found along their principal axes."""
     c = xy - xy.mean(axis=0)
@@ -122,7 +142,8 @@ class UffImporter:
             values[pos[n]] = v * scale
             have[pos[n]] = True
         xy = np.array([nodes[n] for n in ids])
-        grid = grid_indices(xy)
+        shape = options.get("grid_shape")
+        grid = declared_grid(xy, tuple(shape), paths[0]) if shape else grid_indices(xy)
         out = Imported(
             scan_id=str(options.get("scan_id") or paths[0].stem), ids=[f"N{n}" for n in ids], xy=xy, valid=have,
             row=grid[0] if grid else None, col=grid[1] if grid else None,
