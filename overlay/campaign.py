@@ -9,6 +9,7 @@ a scan's result lets a rerun recompute only the scans that changed.
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import json
 import os
@@ -81,10 +82,20 @@ def bundle_digest(folder: Path, known: dict[str, list] | None = None) -> str:
     return h.hexdigest()
 
 
+@functools.lru_cache(maxsize=1)
+def code_digest() -> str:
+    """Hash of the tool's own source, so a changed program never reuses results of the old one."""
+    h = hashlib.blake2b(digest_size=16)
+    for p in sorted(Path(__file__).resolve().parent.rglob("*.py")):
+        h.update(p.read_bytes())
+    return h.hexdigest()
+
+
 def settings_digest(site: Site, entry: ScanEntry) -> str:
     """Hash of what, besides the bundle, shapes one scan's result (not outputs, map or merge)."""
     shaping = {
         "version": __version__,
+        "code": code_digest(),
         "unit": site.drawing_unit, "tolerance": site.tolerance, "accept": site.accept_misfit, "model": site.model,
         "reference": site.reference, "percentile": site.percentile, "incidence": site.incidence_correction,
         "min_level": site.min_signal_level, "min_snr": site.min_snr_db, "min_area": site.min_area_m2,
