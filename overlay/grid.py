@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import scipy.interpolate
@@ -123,7 +124,7 @@ def fill_isolated(values: np.ma.MaskedArray, fillable: np.ndarray) -> np.ma.Mask
     return out
 
 
-def _largest(geom: object) -> Polygon:
+def _largest(geom: Any) -> Polygon:
     geom = shapely.simplify(geom, 0)
     if geom.geom_type == "MultiPolygon":
         geom = max(geom.geoms, key=lambda g: g.area)

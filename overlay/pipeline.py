@@ -304,10 +304,15 @@ def _class_contours(grid: Grid | ScatterGrid, values: np.ma.MaskedArray, level: 
 
 def _zone_psd_source(scan: Scan, gate: Gate | None) -> Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]] | None:
     """A function giving (band freqs, PSD rows) for chosen points, or None for ready-VER scans."""
-    if scan.payload == "records" and gate is not None and scan.band_hz is not None:
-        return lambda rows: band_psd_rows(scan.records, gate, scan.band_hz, scan.velocity_scale, rows)
-    if scan.payload == "spectra" and scan.band_hz is not None:
-        return lambda rows: given_psd_rows(scan.spectra, scan.frequencies, scan.band_hz, scan.velocity_scale, rows)
+    band = scan.band_hz
+    if band is None:
+        return None
+    if scan.payload == "records" and gate is not None and scan.records is not None:
+        records = scan.records
+        return lambda rows: band_psd_rows(records, gate, band, scan.velocity_scale, rows)
+    if scan.payload == "spectra" and scan.spectra is not None and scan.frequencies is not None:
+        spectra, freqs = scan.spectra, scan.frequencies
+        return lambda rows: given_psd_rows(spectra, freqs, band, scan.velocity_scale, rows)
     return None
 
 
@@ -400,7 +405,7 @@ def locate_zones(zones: list[Zone], site: Site, to_map: Similarity | None) -> No
 
 
 def map_placement(site: Site, site_xy: np.ndarray) -> tuple[Similarity | None, pyproj.CRS | None, Fit | None]:
-    """Drawing → map transform and CRS from the site file, checked with pyproj."""
+    """Drawing → map transform and CRS from the site file, checked with pyproj (a similarity either way)."""
     m = site.map
     if m is None:
         return None, None, None
@@ -418,6 +423,7 @@ def map_placement(site: Site, site_xy: np.ndarray) -> tuple[Similarity | None, p
             what="monuments",
         )
         check_fit(fit, m.tolerance_m, "m", accept=site.accept_misfit, source=src)
+        assert isinstance(fit.transform, Similarity)
         t = fit.transform
     check_map_crs(crs, t.apply(site_xy), source=src)
     return t, crs, fit

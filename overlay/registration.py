@@ -152,7 +152,7 @@ def register(scan: Scan, entry: ScanEntry, site: Site) -> Registration:
     except RegistrationError as exc:
         raise RegistrationError(exc.problem, source=src, field="targets") from exc
     passed = check_fit(fit, site.tolerance, site.drawing_unit, accept=site.accept_misfit, source=src)
-    targets = [TargetResult(n, tuple(s), tuple(d), tuple(r), float(lo))
+    targets = [TargetResult(n, (float(s[0]), float(s[1])), (float(d[0]), float(d[1])), (float(r[0]), float(r[1])), float(lo))
                for n, s, d, r, lo in zip(names, seen, drawing, fit.residuals.tolist(), fit.loo)]
     cos, how = _incidence(scan, entry, frame, fit, working, u)
     return Registration(frame, working, fit, passed, targets, cos, how, describe)

@@ -9,6 +9,7 @@ import glob
 import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 from .energy import DEFAULT_PERCENTILE, REFERENCES
 from .plate import aci318_modulus_pa
@@ -292,7 +293,7 @@ def _scans(doc: Fields, path: Path) -> list[ScanEntry]:
     for i, item in enumerate(raw):
         t = Fields(item, f"scans[{i}]", path, SiteFileError)
         pattern = t.string("bundle", required=True) or ""
-        extra = {
+        extra: dict[str, Any] = {
             "element": t.string("element"),
             "healthy_region": _region(t),
             "healthy_region_frame": t.choice("healthy_region_frame", ("drawing", "scanner"), default="drawing"),

@@ -14,7 +14,7 @@ import mmap
 import os
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
-from typing import Callable
+from typing import Callable, Iterable
 
 import numpy as np
 import scipy.fft
@@ -258,6 +258,7 @@ def records_spectra(
         return j - i
 
     starts = range(0, n_points, chunk)
+    done: Iterable[int]
     if threads == 1 or len(starts) == 1:
         done = map(work, starts)
     else:

@@ -37,7 +37,7 @@ def summary(scan: Scan) -> str:
         except Exception as exc:  # describe must still show the rest
             lines.append(f"  grid        none ({exc})")
     lines.append(f"  payload     {scan.payload}")
-    if scan.records is not None:
+    if scan.records is not None and scan.sample_rate_hz is not None and scan.n_samples is not None:
         lines.append(f"  records     {scan.records.shape} {scan.records.dtype}, {scan.n_shots} shot(s), "
                      f"{scan.sample_rate_hz:g} Hz, {scan.n_samples / scan.sample_rate_hz * 1e3:.2f} ms")
         try:

@@ -86,11 +86,11 @@ def asset_rows(result: "RunResult") -> list[dict[str, object]]:
         key = p["defect_id"] if basis == "outline" else p["zone_id"]
         groups.setdefault((p["asset_id"], p["class"]), {})[key] = p["area_m2"]
     order = {c.name: i for i, c in enumerate(result.site.classes)}
-    out = []
+    out: list[dict[str, object]] = []
     for (asset, cls), parts in sorted(groups.items(), key=lambda kv: (kv[0][0], order[kv[0][1]])):
         a = sum(parts.values())
         el = result.element_areas.get(asset, float("nan"))
-        row = {c: "" for c in COLUMNS}
+        row: dict[str, object] = {c: "" for c in COLUMNS}
         row.update({"row_kind": "asset_total", "element": asset, "class": cls, "n_defects": len(parts), "basis": basis,
                     "affected_area_m2": _r(a, 4), "element_area_m2": _r(el, 3), "element_share_pct": _r(100 * a / el, 3)})
         out.append(row)
