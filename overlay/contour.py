@@ -12,10 +12,10 @@ import numpy as np
 import shapely
 from shapely.geometry import MultiPolygon, Polygon
 
-from .grid import Grid
+from .grid import Grid, ScatterGrid
 
 
-def level_polygons(grid: Grid, values: np.ma.MaskedArray, level: float) -> list[Polygon]:
+def level_polygons(grid: Grid | ScatterGrid, values: np.ma.MaskedArray, level: float) -> list[Polygon]:
     """Polygons (with holes) where ``values >= level``; masked nodes are outside the scan.
 
     Returned polygons are valid and in the grid's coordinates, largest first.

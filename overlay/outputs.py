@@ -44,10 +44,10 @@ def staged(finals: Sequence[Path]) -> Iterator[dict[Path, Path]]:
     try:
         for final in finals:
             final.parent.mkdir(parents=True, exist_ok=True)
-            fd, tmp = tempfile.mkstemp(prefix=f".{final.name}.", suffix=".part" + final.suffix, dir=final.parent)
+            fd, name = tempfile.mkstemp(prefix=f".{final.name}.", suffix=".part" + final.suffix, dir=final.parent)
             os.close(fd)
-            os.unlink(tmp)  # writers such as GDAL want to create the file themselves
-            temps[final] = Path(tmp)
+            os.unlink(name)  # writers such as GDAL want to create the file themselves
+            temps[final] = Path(name)
         yield temps
         for final, tmp in temps.items():
             if not tmp.exists():
@@ -55,9 +55,9 @@ def staged(finals: Sequence[Path]) -> Iterator[dict[Path, Path]]:
         for final, tmp in temps.items():
             os.replace(tmp, final)
     finally:
-        for tmp in temps.values():
+        for left in temps.values():
             with contextlib.suppress(FileNotFoundError):
-                tmp.unlink()
+                left.unlink()
 
 
 def output_paths(out_dir: Path, basename: str, exporters: dict[str, "Exporter"], formats: Sequence[str]) -> dict[str, Path]:

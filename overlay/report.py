@@ -52,7 +52,7 @@ def run_report(result: "RunResult") -> str:
         if s.reference is not None:
             out.append(f"  reference {s.reference.describe()}")
         out.append(f"  incidence correction {s.incidence}")
-        reasons = defaultdict(int)
+        reasons: dict[str, int] = defaultdict(int)
         for r in s.invalid_reason:
             if r:
                 reasons[r] += 1
