@@ -185,11 +185,6 @@ def _condition(model: str, src: np.ndarray) -> float:
     return float(sv[0] / sv[-1]) if sv[-1] > 0 else float("inf")
 
 
-def fit_similarity(src: np.ndarray, dst: np.ndarray, names: Sequence[str], *, what: str = "targets") -> Fit:
-    """Least-squares similarity (shorthand for ``fit_points("similarity", ...)``)."""
-    return fit_points("similarity", src, dst, names, what=what)
-
-
 def check_fit(fit: Fit, tolerance: float, unit: str, *, accept: bool = False, source: str | None = None) -> bool:
     """Refuse a fit whose worst residual exceeds ``tolerance`` unless ``accept``; return whether it passed."""
     name, err = fit.worst

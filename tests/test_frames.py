@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 
 from overlay.errors import CRSCheckError, RegistrationError, RegistrationWarning
-from overlay.fits import check_fit, fit_similarity
+from overlay.fits import check_fit, fit_points
 from overlay.frames import check_map_crs, from_placement, to_crs, transform_xy
 from overlay.transforms import Similarity
 
@@ -32,7 +32,7 @@ def test_gn72_similarity_worked_example() -> None:
 def test_fit_recovers_gn72_parameters_from_exact_points() -> None:
     src = np.array([[300000.0, 4500000.0], [310000.0, 4500000.0], [305000.0, 4512000.0], [298000.0, 4490000.0]])
     dst = _gn72_similarity().apply(src)
-    fit = fit_similarity(src, dst, ["a", "b", "c", "d"])
+    fit = fit_points("similarity", src, dst, ["a", "b", "c", "d"])
     assert fit.transform.scale == pytest.approx(M, rel=1e-9)
     assert -math.radians(fit.transform.rotation_deg) == pytest.approx(THETA, rel=1e-6)
     assert fit.transform.tx == pytest.approx(XT0, abs=1e-4) and fit.transform.ty == pytest.approx(YT0, abs=1e-4)
@@ -45,7 +45,7 @@ def test_residuals_match_hand_check() -> None:
     src = np.array([[0.0, 0.0], [1.0, 0.0], [1.0, 1.0], [0.0, 1.0]])
     dst = src.copy()
     dst[1, 0] += 0.01
-    fit = fit_similarity(src, dst, ["A", "B", "C", "D"])
+    fit = fit_points("similarity", src, dst, ["A", "B", "C", "D"])
     np.testing.assert_allclose(fit.residuals, dst - fit.transform.apply(src), atol=1e-15)
     np.testing.assert_allclose(fit.residuals.sum(axis=0), 0.0, atol=1e-12)
     assert fit.worst[0] == "B"
@@ -60,7 +60,7 @@ def test_noisy_targets_recover_within_noise() -> None:
     truth = Similarity(math.cos(0.3) * 1.0, math.sin(0.3), 412.0, 8.0)
     src = rng.uniform(-2, 2, (8, 2))
     dst = truth.apply(src) + rng.normal(0, 0.001, (8, 2))
-    fit = fit_similarity(src, dst, [f"T{i}" for i in range(8)])
+    fit = fit_points("similarity", src, dst, [f"T{i}" for i in range(8)])
     assert abs(fit.transform.scale - 1.0) < 1e-3
     assert abs(fit.transform.rotation_deg - math.degrees(0.3)) < 0.05
     assert 0.0003 < fit.rms < 0.003
@@ -68,16 +68,16 @@ def test_noisy_targets_recover_within_noise() -> None:
 
 def test_too_few_and_coincident_targets() -> None:
     with pytest.raises(RegistrationError, match="at least 2 targets, got 1 \\(T1\\)"):
-        fit_similarity(np.zeros((1, 2)), np.zeros((1, 2)), ["T1"])
+        fit_points("similarity", np.zeros((1, 2)), np.zeros((1, 2)), ["T1"])
     with pytest.raises(RegistrationError, match="T1 and T2 coincide"):
-        fit_similarity(np.ones((2, 2)), np.zeros((2, 2)), ["T1", "T2"])
+        fit_points("similarity", np.ones((2, 2)), np.zeros((2, 2)), ["T1", "T2"])
 
 
 def test_tolerance_stops_unless_accepted() -> None:
     src = np.array([[0.0, 0.0], [1.0, 0.0], [1.0, 1.0]])
     dst = src.copy()
     dst[2] += 0.05
-    fit = fit_similarity(src, dst, ["A", "B", "C"])
+    fit = fit_points("similarity", src, dst, ["A", "B", "C"])
     with pytest.raises(RegistrationError) as info:
         check_fit(fit, 0.01, "m")
     assert info.value.exit_code == 4 and "misses" in str(info.value)
