@@ -50,3 +50,23 @@ def test_bad_fields(tmp_path: Path, extra: str, fragment: str) -> None:
 def test_glob_matching_nothing(tmp_path: Path) -> None:
     with pytest.raises(SiteFileError, match=r"scans\[0\].bundle: pattern 'nothing/\*' matches no folder"):
         read_site(write_site(tmp_path, ["nothing/*"]))
+
+
+def test_the_documented_site_file_example_reads(demo: dict, tmp_path: Path) -> None:
+    # docs/site-file.md shows a full site file; it must stay true to the reader
+    import re
+    import shutil
+
+    doc = (Path(__file__).resolve().parents[1] / "docs" / "site-file.md").read_text()
+    example = re.search(r"```toml\n(.*?)```", doc, re.S).group(1)
+    shutil.copytree(demo["root"] / "site", tmp_path / "site")
+    path = tmp_path / "site" / "documented.toml"
+    path.write_text(example)
+    import warnings as _w
+
+    with _w.catch_warnings():
+        _w.simplefilter("error")  # no unknown field in the documented example
+        site = read_site(path)
+    assert site.name == "Kestrel Lane Overpass" and site.map is not None and site.alignment is not None
+    assert [c.name for c in site.classes] == ["watch", "suspect", "probable"]
+    assert site.dxf.base is not None and site.merge is not None and site.elements is not None
