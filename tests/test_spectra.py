@@ -164,3 +164,15 @@ def test_kept_band_psd_integrates_to_the_energy() -> None:
     sp = records_spectra(x, _gate(2048), (400.0, 8000.0), keep_psd=True)
     assert sp.band_psd.shape == (5, len(sp.band_freqs))
     np.testing.assert_allclose(sp.band_psd.sum(axis=1) * FS / 2048, sp.energy, rtol=1e-5)
+
+
+@pytest.mark.parametrize("n, band", [(1000, (400.0, 8000.0)), (777, (0.0, FS / 2)), (1024, (0.0, FS / 2))])
+def test_stage_band_psd_equals_scipy_periodogram(n: int, band: tuple[float, float]) -> None:
+    # reference library: scipy.signal.periodogram (Hann, density, constant detrend) on the band bins —
+    # also at DC and Nyquist, where the frequency-domain window uses the spectrum's symmetry
+    x = (np.random.default_rng(13).normal(0, 1.0, (6, n)) + 0.3).astype(np.float64)
+    f_ref, p_ref = scipy.signal.periodogram(x, FS, window="hann", scaling="density")
+    sp = records_spectra(x.astype(np.float32), _gate(n), band, keep_psd=True)
+    sel = (f_ref >= band[0]) & (f_ref <= band[1])
+    np.testing.assert_allclose(sp.band_freqs, f_ref[sel])
+    np.testing.assert_allclose(sp.band_psd, p_ref[:, sel], rtol=2e-4, atol=1e-7 * p_ref.max())
