@@ -170,7 +170,11 @@ def _map_dask(entries: list[ScanEntry], site: Site, address: str) -> Iterable[tu
         from dask.distributed import Client
     except ImportError as exc:
         raise UsageError("--dask needs the optional extra: pip install 'overlay[dask]'") from exc
-    with Client(address, timeout="20s") as client:
+    try:
+        client = Client(address, timeout="10s")
+    except (OSError, TimeoutError) as exc:
+        raise OverlayError(f"cannot reach the Dask scheduler at {address} ({exc})", field="--dask") from exc
+    with client:
         shared = client.scatter(site, broadcast=True)  # sent once, not with every task
         futures = client.map(_work, entries, site=shared, single_thread=True, pure=False)
         yield from client.gather(futures)

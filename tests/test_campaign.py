@@ -98,3 +98,18 @@ def test_cache_recomputes_only_what_changed(site_copy: Path, tmp_path: Path) -> 
     assert moved.computed == []
     reref = run_campaign(dataclasses.replace(site, percentile=20.0), cache_dir=cache)
     assert len(reref.computed) == 6
+
+
+def test_cli_jobs_two_and_an_unreachable_scheduler(site_copy: Path, tmp_path: Path, capsys: pytest.CaptureFixture) -> None:
+    out = tmp_path / "out"
+    assert main(["run", str(site_copy), "--out", str(out), "-q", "--jobs", "2", "--no-pictures", "--no-merge"]) == 0
+    assert "scans: 6 computed, 0 from the cache, 0 failed" in capsys.readouterr().out
+    assert main(["run", str(site_copy), "--out", str(out), "-q", "--jobs", "2", "--no-pictures", "--no-merge",
+                 "--overwrite"]) == 0
+    assert "0 computed, 6 from the cache" in capsys.readouterr().out
+    pytest.importorskip("dask.distributed")
+    code = main(["run", str(site_copy), "--out", str(tmp_path / "o2"), "-q", "--no-cache", "--no-pictures",
+                 "--dask", "tcp://127.0.0.1:9"])
+    err = capsys.readouterr().err
+    assert code == 1 and "cannot reach the Dask scheduler at tcp://127.0.0.1:9" in err
+    assert len(err.strip().splitlines()) == 1
