@@ -199,3 +199,8 @@ def test_gdal_command_line_reads_the_geopackage(written: dict) -> None:
         pytest.skip("GDAL command-line tools not installed")
     done = subprocess.run(["ogrinfo", "-so", "-al", str(written["paths"]["gpkg"])], capture_output=True, text=True)
     assert done.returncode == 0 and "zones" in done.stdout
+
+
+def test_quantities_csv_carries_the_cautions(written: dict) -> None:
+    rows = list(csv.DictReader(written["paths"]["quantities-csv"].open()))
+    assert [r["note"] for r in rows if r["row_kind"] == "caution"] == list(CAUTIONS)

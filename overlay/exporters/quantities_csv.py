@@ -24,7 +24,7 @@ COLUMNS = (
     "contour_area_m2", "outline_area_m2", "affected_area_m2",
     "footprint_length_m", "footprint_width_m", "footprint_area_m2",
     "depth_low_m", "depth_high_m", "volume_low_m3", "volume_high_m3",
-    "element_area_m2", "element_share_pct", "peak_hz", "confidence",
+    "element_area_m2", "element_share_pct", "peak_hz", "confidence", "note",
 )
 
 
@@ -75,6 +75,8 @@ def quantity_rows(result: "RunResult") -> list[dict[str, object]]:
             "element_area_m2": _r(el, 3), "element_share_pct": _r(100 * a / el, 3), "peak_hz": "", "confidence": "",
         })
     rows.extend(asset_rows(result))
+    # the cautions travel with the quantities: a spreadsheet is a report too
+    rows.extend({"row_kind": "caution", "note": c} for c in result.cautions)
     return rows
 
 
@@ -104,6 +106,6 @@ class QuantitiesCsvExporter:
 
     def write(self, result: "RunResult", path: Path) -> None:
         with path.open("w", newline="", encoding="utf-8") as fh:
-            w = csv.DictWriter(fh, fieldnames=COLUMNS)
+            w = csv.DictWriter(fh, fieldnames=COLUMNS, restval="")
             w.writeheader()
             w.writerows(quantity_rows(result))
