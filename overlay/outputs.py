@@ -9,6 +9,7 @@ from __future__ import annotations
 import contextlib
 import os
 import tempfile
+import warnings
 from pathlib import Path
 from typing import TYPE_CHECKING, Iterator, Sequence
 
@@ -127,9 +128,10 @@ def print_pdf(html_path: Path, pdf_path: Path, browser: str) -> None:
 
 
 def write_outputs(result: "RunResult", out_dir: Path, *, overwrite: bool = False, pictures: bool = True,
-                  pdf: bool = False) -> dict[str, Path]:
+                  pdf: bool | None = None) -> dict[str, Path]:
     """Write every requested format, the reports and (by default) the pictures; all move into place
-    together or none does."""
+    together or none does.  ``pdf``: True prints the HTML report to PDF (Chromium needed), None
+    does so when Chromium is installed (a failure is then only a warning), False never."""
     from .report import run_report
     from .report_html import site_report
 
@@ -140,14 +142,13 @@ def write_outputs(result: "RunResult", out_dir: Path, *, overwrite: bool = False
     if pictures:
         paths["html"] = out_dir / f"{result.site.basename}-report.html"
         pics = {n: folder / f"{n}.png" for n in picture_names(result, "dxf" in exporters)}
-    browser = find_pdf_printer() if pdf and pictures else None
+    browser = find_pdf_printer() if pdf is not False and pictures else None
     if pdf and browser is None:
         from .errors import UsageError
 
         raise UsageError("--pdf needs a headless Chromium (Debian package chromium); the HTML report prints from any browser")
-    if browser:
-        paths["pdf"] = out_dir / f"{result.site.basename}-report.pdf"
-    check_targets(list(paths.values()) + list(pics.values()), overwrite=overwrite)
+    pdf_path = out_dir / f"{result.site.basename}-report.pdf" if browser else None
+    check_targets(list(paths.values()) + list(pics.values()) + ([pdf_path] if pdf_path else []), overwrite=overwrite)
     try:
         with staged(list(paths.values()) + list(pics.values())) as temps:
             for fmt, exporter in exporters.items():
@@ -163,12 +164,23 @@ def write_outputs(result: "RunResult", out_dir: Path, *, overwrite: bool = False
                 for name, png in images.items():
                     temps[pics[name]].write_bytes(png)
                 temps[paths["html"]].write_text(site_report(result, images), encoding="utf-8")
-                if browser:
-                    print_pdf(temps[paths["html"]], temps[paths["pdf"]], browser)
     except BaseException:
         with contextlib.suppress(OSError):
             folder.rmdir()  # only if we left it empty
         raise
     if pictures:
         paths["pictures"] = folder
+    if browser and pdf_path is not None:
+        with staged([pdf_path]) as temps:
+            try:
+                print_pdf(paths["html"], temps[pdf_path], browser)
+            except ExporterError as exc:
+                if pdf:
+                    raise
+                warnings.warn(f"{exc.line()}; the HTML report is written, no PDF", stacklevel=2)
+                temps[pdf_path].write_bytes(b"")  # keep staging happy, removed below
+        if pdf_path.exists() and pdf_path.stat().st_size == 0:
+            pdf_path.unlink()
+        else:
+            paths["pdf"] = pdf_path
     return paths

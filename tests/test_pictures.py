@@ -169,11 +169,12 @@ def test_no_pictures_writes_none(demo: dict, tmp_path: Path) -> None:
     assert "html" not in paths and not (tmp_path / f"{demo['result'].site.basename}-pictures").exists()
 
 
-def test_pdf_report_where_chromium_is_installed(demo: dict, tmp_path: Path) -> None:
+def test_pdf_report_where_chromium_is_installed(demo: dict, tmp_path: Path, written: dict) -> None:
     from overlay.outputs import find_pdf_printer
 
     if find_pdf_printer() is None:
         pytest.skip("Chromium not installed")
+    assert written["paths"]["pdf"].read_bytes()[:5] == b"%PDF-"  # by default where a printer exists
     paths = write_outputs(demo["result"], tmp_path, pdf=True)
     data = paths["pdf"].read_bytes()
     assert data[:5] == b"%PDF-" and len(data) > 50_000

@@ -21,7 +21,9 @@ def add_output_options(p: argparse.ArgumentParser, default_out: str) -> None:
                    help="go on when a target fit exceeds the tolerance (recorded in the outputs)")
     p.add_argument("-q", "--quiet", action="store_true", help="print only the output paths")
     p.add_argument("--no-pictures", action="store_true", help="skip the previews, zone sheets and HTML site report")
-    p.add_argument("--pdf", action="store_true", help="also print the site report to PDF (needs headless Chromium)")
+    p.add_argument("--pdf", action="store_true", default=None,
+                   help="print the site report to PDF, or fail (default: when headless Chromium is installed)")
+    p.add_argument("--no-pdf", dest="pdf", action="store_false", help="no PDF of the site report")
     p.add_argument("-j", "--jobs", type=int, default=1, metavar="N", help="scans processed in N parallel processes (default 1)")
     p.add_argument("--dask", metavar="ADDRESS", default=None,
                    help="run the scans on the Dask scheduler at ADDRESS (optional extra 'dask')")
