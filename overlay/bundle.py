@@ -196,15 +196,15 @@ def read_bundle(folder: str | Path) -> Scan:
             raise band.fail("hz", f"upper edge {hi:g} Hz is above the Nyquist frequency {scan.sample_rate_hz / 2:g} Hz")
         if scan.frequencies is not None and (hi < scan.frequencies[0] or lo > scan.frequencies[-1]):
             raise band.fail("hz", "lies outside frequencies.npy")
-        _warn_unknown(band)
+        band.warn_unknown(BundleWarning)
     elif scan.payload != "ver":
         raise doc.fail("band", "table with hz = [low, high] is required unless ver_db is given")
 
     scan.targets = _targets(doc, kind, unit_scale)
     for t in (scan_t, coords):
-        _warn_unknown(t)
+        t.warn_unknown(BundleWarning)
     doc.seen.update({"geometry", "targets", "band"})
-    _warn_unknown(doc)
+    doc.warn_unknown(BundleWarning)
     return scan
 
 
@@ -353,7 +353,7 @@ def _read_records(scan: Scan, doc: Fields, path: Path, n: int) -> None:
         if not 0 <= gate[0] < gate[1]:
             raise t.fail("gate_s", f"must be [start, end] with 0 <= start < end, got [{gate[0]:g}, {gate[1]:g}]")
         scan.gate_s = gate
-    _warn_unknown(t)
+    t.warn_unknown(BundleWarning)
 
 
 def _read_spectra(scan: Scan, doc: Fields, path: Path, freqs_path: Path, n: int) -> None:
@@ -375,7 +375,7 @@ def _read_spectra(scan: Scan, doc: Fields, path: Path, freqs_path: Path, n: int)
         raise doc.fail("spectra", "table is required when spectra.npy is present")
     scale = VELOCITY_TO_MPS[t.choice("velocity_unit", tuple(VELOCITY_TO_MPS))]
     scan.spectra, scan.frequencies, scan.velocity_scale = spec, freqs, scale
-    _warn_unknown(t)
+    t.warn_unknown(BundleWarning)
 
 
 def _geometry(doc: Fields) -> Geometry:
@@ -389,7 +389,7 @@ def _geometry(doc: Fields) -> Geometry:
     )
     if (g.number("air_temperature_c") or 0.0) > 60:
         raise g.fail("air_temperature_c", "must lie in -60..60 °C")
-    _warn_unknown(g)
+    g.warn_unknown(BundleWarning)
     return geo
 
 
@@ -411,14 +411,8 @@ def _targets(doc: Fields, kind: str, unit_scale: float) -> list[Target]:
         if kind == "surface":
             scanner = (scanner[0] * unit_scale, scanner[1] * unit_scale)
         out.append(Target(name=name, scanner=scanner, drawing=t.pair("drawing")))
-        _warn_unknown(t)
+        t.warn_unknown(BundleWarning)
     return out
-
-
-def _warn_unknown(fields: Fields) -> None:
-    extra = fields.unknown()
-    if extra:
-        warnings.warn(f"{fields.source}: ignoring unknown field(s) {', '.join(extra)}", BundleWarning, stacklevel=3)
 
 
 def _few(ids: np.ndarray, k: int = 5) -> str:

@@ -6,7 +6,6 @@ See docs/site-file.md for every field.  Paths in the file are relative to it.
 from __future__ import annotations
 
 import glob
-import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -214,7 +213,7 @@ def read_site(path: str | Path) -> Site:
         if missing:
             raise en.fail("reference", f"'region' needs healthy_region on every scan; missing for {', '.join(missing)}")
     for t in (doc, s, reg, en, qt, zt, rp, out):
-        _warn_unknown(t)
+        t.warn_unknown(OverlayWarning)
     return Site(
         path=path,
         name=name,
@@ -275,7 +274,7 @@ def _classes(zt: Fields) -> list[ZoneClass]:
         if not name.replace("-", "").replace("_", "").isalnum():
             raise c.fail("name", f"must be letters, digits, - or _, got {name!r}")
         out.append(ZoneClass(name, c.number("threshold_db", required=True) or 0.0))
-        _warn_unknown(c)
+        c.warn_unknown(OverlayWarning)
     names = [c.name for c in out]
     if len(set(names)) != len(names):
         raise zt.fail("classes", f"class names must be unique, got {names}")
@@ -309,7 +308,7 @@ def _scans(doc: Fields, path: Path) -> list[ScanEntry]:
             out.extend(ScanEntry(p, **extra) for p in found)
         else:
             out.append(ScanEntry(full, **extra))
-        _warn_unknown(t)
+        t.warn_unknown(OverlayWarning)
     return out
 
 
@@ -327,7 +326,7 @@ def _concrete(doc: Fields) -> Concrete:
     poisson = c.number("poisson", 0.2, minimum=0.0) or 0.0
     if poisson >= 0.5:
         raise c.fail("poisson", f"must lie in 0..0.5, got {poisson:g}")
-    _warn_unknown(c)
+    c.warn_unknown(OverlayWarning)
     return Concrete(modulus, density, poisson)
 
 
@@ -340,7 +339,7 @@ def _elements(doc: Fields, path: Path) -> Elements | None:
     if not full.is_file():
         raise e.fail("source", f"file not found: {full}")
     out = Elements(full, e.string("layer"), e.string("id_field", "asset_id") or "asset_id")
-    _warn_unknown(e)
+    e.warn_unknown(OverlayWarning)
     return out
 
 
@@ -375,7 +374,7 @@ def _dxf(doc: Fields, path: Path) -> DxfStyle:
         fill_transparency=transparency,
         reuse_layers=_bool(d, "reuse_layers", False),
     )
-    _warn_unknown(d)
+    d.warn_unknown(OverlayWarning)
     return style
 
 
@@ -387,7 +386,7 @@ def _merge(doc: Fields) -> MergeSpec | None:
     if not layer.replace("_", "").isalnum():
         raise m.fail("findings_layer", f"must be letters, digits or _, got {layer!r}")
     spec = MergeSpec(layer, m.string("method", MergeSpec.method) or MergeSpec.method, _bool(m, "backup", True))
-    _warn_unknown(m)
+    m.warn_unknown(OverlayWarning)
     return spec
 
 
@@ -398,7 +397,7 @@ def _alignment(doc: Fields) -> AlignmentSpec | None:
     pts = _pairs(a, "points", 2, "a polyline")
     assert pts is not None
     spec = AlignmentSpec(pts, a.choice("frame", ("drawing", "map"), default="drawing"), a.number("start_station_m", 0.0) or 0.0)
-    _warn_unknown(a)
+    a.warn_unknown(OverlayWarning)
     return spec
 
 
@@ -440,16 +439,10 @@ def _map(doc: Fields) -> MapFrame | None:
         d, mp = t.pair("drawing", required=True), t.pair("map", required=True)
         assert d is not None and mp is not None
         monuments.append(Monument(t.string("name", f"M{i + 1}") or "", d, mp))
-        _warn_unknown(t)
+        t.warn_unknown(OverlayWarning)
     if origin is None and not monuments:
         raise m.fail("origin", "give either origin (+ bearing_deg, scale) or [[map.monuments]]")
     if origin is not None and monuments:
         raise m.fail("monuments", "give either origin or monuments, not both")
-    _warn_unknown(m)
+    m.warn_unknown(OverlayWarning)
     return MapFrame(crs, origin, bearing, scale, tuple(monuments), tol)
-
-
-def _warn_unknown(t: Fields) -> None:
-    extra = t.unknown()
-    if extra:
-        warnings.warn(f"{t.source}: ignoring unknown field(s) {', '.join(extra)}", OverlayWarning, stacklevel=3)

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import sys
+import warnings
 from pathlib import Path
 from typing import Any
 
@@ -127,3 +128,9 @@ class Fields:
     def unknown(self) -> list[str]:
         """Dotted names of keys present but never asked for."""
         return [self.name(k) for k in self.table if k not in self.seen]
+
+    def warn_unknown(self, category: type[Warning]) -> None:
+        """Warn (file and dotted names) about keys present but never asked for: ignored, not fatal."""
+        extra = self.unknown()
+        if extra:
+            warnings.warn(f"{self.source}: ignoring unknown field(s) {', '.join(extra)}", category, stacklevel=4)
