@@ -21,14 +21,20 @@ from . import Imported
 LENGTH = {"m": 1.0, "mm": 1e-3}
 
 
-def _rows(path: Path) -> tuple[list[str], list[list[str]]]:
+def _csv(path: Path) -> list[list[str]]:
+    """The non-blank rows of a UTF-8 CSV file; a missing or undecodable file is a BundleError."""
     if not path.is_file():
         raise BundleError("file not found", source=path)
     try:
         rows = list(csv.reader(path.read_text(encoding="utf-8-sig").splitlines()))
     except UnicodeDecodeError as exc:
         raise BundleError("not UTF-8 text", source=path) from exc
-    rows = [r for r in rows if any(c.strip() for c in r)]
+    return [r for r in rows if any(c.strip() for c in r)]
+
+
+def _rows(path: Path) -> tuple[list[str], list[list[str]]]:
+    """Header and data rows of a table with a header row."""
+    rows = _csv(path)
     if len(rows) < 2:
         raise BundleError("needs a header row and at least one data row", source=path)
     return [h.strip() for h in rows[0]], rows[1:]
@@ -110,11 +116,9 @@ class MatrixTableImporter:
 
     def read(self, paths: list[Path], options: dict[str, Any]) -> Imported:
         path = paths[0]
-        if not path.is_file():
-            raise BundleError("file not found", source=path)
         if "spacing" not in options:
             raise BundleError("give the grid spacing (--spacing, metres)", source=path, field="options")
-        rows = [r for r in csv.reader(path.read_text(encoding="utf-8-sig").splitlines()) if any(c.strip() for c in r)]
+        rows = _csv(path)
         if not rows:
             raise BundleError("empty file", source=path)
         width = len(rows[0])
