@@ -116,9 +116,9 @@ class MatrixTableImporter:
 
     def read(self, paths: list[Path], options: dict[str, Any]) -> Imported:
         path = paths[0]
+        rows = _csv(path)
         if "spacing" not in options:
             raise BundleError("give the grid spacing (--spacing, metres)", source=path, field="options")
-        rows = _csv(path)
         if not rows:
             raise BundleError("empty file", source=path)
         width = len(rows[0])
