@@ -303,17 +303,34 @@ def _class_contours(grid: Grid | ScatterGrid, values: np.ma.MaskedArray, level: 
 
 
 def _zone_psd_source(scan: Scan, gate: Gate | None) -> Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]] | None:
-    """A function giving (band freqs, PSD rows) for chosen points, or None for ready-VER scans."""
+    """A function giving (band freqs, PSD rows in sorted row order) for chosen points, or None for
+    ready-VER scans.  Rows already computed are kept: nested zones of higher classes ask for
+    points of the lowest-class zone around them, whose spectra need not be computed again."""
     band = scan.band_hz
     if band is None:
         return None
+    compute: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]]
     if scan.payload == "records" and gate is not None and scan.records is not None:
         records = scan.records
-        return lambda rows: band_psd_rows(records, gate, band, scan.velocity_scale, rows)
-    if scan.payload == "spectra" and scan.spectra is not None and scan.frequencies is not None:
+        compute = lambda rows: band_psd_rows(records, gate, band, scan.velocity_scale, rows)  # noqa: E731
+    elif scan.payload == "spectra" and scan.spectra is not None and scan.frequencies is not None:
         spectra, freqs = scan.spectra, scan.frequencies
-        return lambda rows: given_psd_rows(spectra, freqs, band, scan.velocity_scale, rows)
-    return None
+        compute = lambda rows: given_psd_rows(spectra, freqs, band, scan.velocity_scale, rows)  # noqa: E731
+    else:
+        return None
+    store: dict[int, np.ndarray] = {}
+    axis: list[np.ndarray] = []
+
+    def psd(rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        rows = np.sort(np.asarray(rows, dtype=np.int64))
+        missing = np.array([r for r in rows.tolist() if r not in store], dtype=np.int64)
+        if missing.size or not axis:
+            f, p = compute(missing if missing.size else rows[:1])
+            axis[:] = [f]
+            store.update(zip((missing if missing.size else rows[:1]).tolist(), p))
+        return axis[0], np.stack([store[r] for r in rows.tolist()])
+
+    return psd
 
 
 def _healthy_spectrum(zone_psd: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]] | None, ver: np.ndarray,
