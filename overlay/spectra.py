@@ -110,11 +110,15 @@ def _peak_and_max(freqs: np.ndarray, power: np.ndarray) -> tuple[np.ndarray, np.
 
 
 def band_metrics(
-    freqs: np.ndarray, psd_band: np.ndarray, df: float | np.ndarray, *, scratch: bool = False
+    freqs: np.ndarray, psd_band: np.ndarray, df: float | np.ndarray
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Band energy (sum of PSD·df), peak frequency and SNR (peak over median, dB) per row.
+    """Band energy (sum of PSD·df), peak frequency and SNR (peak over the noise floor, dB) per row.
 
-    ``scratch``: ``psd_band`` may be reordered (saves a copy for the median).
+    The noise floor is the median of every second band bin.  Adjacent bins of
+    a Hann periodogram overlap (their powers correlate), so the other half adds
+    little to the estimate while the median is the costliest step of the stage
+    (measured, docs/performance.md); for white noise the expected value is the
+    same, ln 2 times the mean density.
     """
     if np.ndim(df) == 0:
         energy = psd_band.sum(axis=-1, dtype=np.float64) * float(df)
@@ -122,38 +126,29 @@ def band_metrics(
         energy = psd_band.astype(np.float64) @ np.asarray(df, dtype=np.float64)
     peak, top = _peak_and_max(freqs, psd_band)
     with np.errstate(divide="ignore", invalid="ignore"):
-        snr = 10.0 * np.log10(top / _median(psd_band, in_place=scratch))
+        snr = 10.0 * np.log10(top / _median(psd_band[..., ::2]))
     return energy, peak, snr
 
 
-def _median(p: np.ndarray, *, in_place: bool = False) -> np.ndarray:
-    """Median of each row by partition (three times faster than np.median on wide rows).
-
-    ``in_place`` reorders ``p`` itself (no copy), for callers done with it.
-    """
+def _median(p: np.ndarray) -> np.ndarray:
+    """Median of each row by partition (three times faster than np.median on wide rows)."""
     m = p.shape[-1]
     k = m // 2
-    kth = k if m % 2 else (k - 1, k)
-    if in_place:
-        p.partition(kth, axis=-1)
-        part = p
-    else:
-        part = np.partition(p, kth, axis=-1)
+    part = np.partition(p, k if m % 2 else (k - 1, k), axis=-1)
     return part[..., k] if m % 2 else 0.5 * (part[..., k - 1] + part[..., k])
 
 
 @dataclass(frozen=True)
 class _Plan:
-    """What every chunk of one call shares: gate, band bins, window and its spectrum."""
+    """What every chunk of one call shares: gate, band bins and the window's spectrum."""
 
     start: int
     stop: int
     band: slice
     freqs: np.ndarray
-    window: np.ndarray  # float32
     mean_bins: np.ndarray  # band-relative bins the record mean leaks into (Hann: only bins 0 and 1)
-    window_band: np.ndarray  # rfft of the window on those bins, complex64
-    factor: np.ndarray  # density scale × velocity scale², doubled except DC/Nyquist, per band bin
+    window_band: np.ndarray  # twice the rfft of the window on those bins (as _hann_band), complex64
+    factor: np.ndarray  # density scale × velocity scale² × ¼ (see _hann_band), doubled except DC/Nyquist
     df: float
     fft_workers: int
 
@@ -165,40 +160,70 @@ def _plan(gate: Gate, band_hz: tuple[float, float], velocity_scale: float, fft_w
     w = hann(n)
     k = np.arange(len(freqs))[sl]
     double = np.where((k == 0) | ((n % 2 == 0) & (k == n // 2)), 1.0, 2.0)
-    factor = (double * _density_scale(w, fs, n) * velocity_scale**2).astype(np.float32)
+    # × ¼: _hann_band returns twice the windowed bins
+    factor = (0.25 * double * _density_scale(w, fs, n) * velocity_scale**2).astype(np.float32)
     wb = scipy.fft.rfft(w)[sl]
     leak = np.nonzero(np.abs(wb) > 1e-9 * np.sum(w))[0]
-    return _Plan(gate.start, gate.stop, sl, freqs[sl], w.astype(np.float32), leak,
-                 wb[leak].astype(np.complex64), factor, fs / n, fft_workers)
+    return _Plan(gate.start, gate.stop, sl, freqs[sl], leak,
+                 (2.0 * wb[leak]).astype(np.complex64), factor, fs / n, fft_workers)
+
+
+def _hann_band(x: np.ndarray, band: slice, n: int) -> np.ndarray:
+    """Twice the band bins of FFT(w·x), from the plain FFT ``x`` of length ``n``; w the periodic Hann window.
+
+    w = ½ − ½·cos(2πt/n) has the spectrum n·(½, −¼, −¼) on bins (0, ±1), so windowing
+    is the three-tap sum ½·X[k] − ¼·(X[k−1] + X[k+1]) on the band's bins only; the
+    factor ½ is left to the caller's power scale (one pass fewer).  The neighbours
+    past either end of the one-sided spectrum come from its symmetry
+    X[−k] = X[n−k] = conj(X[k]).
+    """
+    lo, hi, nb = band.start, band.stop, x.shape[-1]
+    parts = []
+    if lo == 0:
+        parts.append(np.conj(x[..., 1:2]))
+    parts.append(x[..., max(lo - 1, 0) : min(hi + 1, nb)])
+    if hi == nb:
+        parts.append(np.conj(x[..., nb - 2 : nb - 1] if n % 2 == 0 else x[..., nb - 1 : nb]))
+    ext = parts[0] if len(parts) == 1 else np.concatenate(parts, axis=-1)
+    out = np.add(ext[..., :-2], ext[..., 2:])
+    out *= np.float32(-0.5)
+    out += ext[..., 1:-1]
+    return out
 
 
 def _chunk(rows: np.ndarray, plan: _Plan, keep: bool = False) -> tuple[np.ndarray, ...]:
     """Band PSD and metrics of one chunk of rows ``(m, [shots,] samples)``.
 
-    The mean is removed by linearity of the FFT, FFT(w·(x − x̄)) = FFT(w·x) − x̄·FFT(w),
-    and the periodic Hann window's spectrum is zero beyond bin 1, so only a band
-    reaching down to bin 1 needs the mean at all.  NaN or inf inside the gate
-    propagates into every bin; outside it, into the sum of the rest.
+    The FFT reads the gate straight from the rows (the memory map) and the
+    window is applied to the band bins afterwards (``_hann_band``): no windowed
+    copy of the records is made.  The mean is removed by linearity of the FFT,
+    FFT(w·(x − x̄)) = FFT(w·x) − x̄·FFT(w), and the periodic Hann window's
+    spectrum is zero beyond bin 1, so only a band reaching down to bin 1 needs
+    the mean at all.  A record is finite when the plain sum of all its samples
+    is: NaN or inf anywhere, inside the gate or not, makes that sum non-finite
+    (the cheapest full pass, measured).
     """
     m = rows.shape[0]
+    total = np.einsum("...i->...", rows)  # einsum's own vector loop: no BLAS threads to fight ours
+    ok = np.isfinite(total).reshape(m, -1).all(axis=1)
     inside = rows[..., plan.start : plan.stop]
-    rest = rows[..., : plan.start].sum(axis=-1, dtype=np.float32) + rows[..., plan.stop :].sum(axis=-1, dtype=np.float32)
-    block = np.multiply(inside, plan.window, dtype=np.float32)
-    spec = scipy.fft.rfft(block, axis=-1, workers=plan.fft_workers, overwrite_x=True)[..., plan.band]
-    if len(plan.mean_bins):
-        mean = np.mean(inside, axis=-1, dtype=np.float32)[..., None]
-        spec[..., plan.mean_bins] -= mean * plan.window_band
-    p = np.abs(spec)
-    np.square(p, out=p)
-    ok = np.isfinite(rest) & np.isfinite(p).all(axis=-1)
-    ok = ok.reshape(m, -1).all(axis=1)
+    if inside.dtype != np.float32:
+        inside = inside.astype(np.float32)
+    with np.errstate(invalid="ignore", over="ignore"):  # a bad record's NaN/inf is caught by ``ok``
+        spec = _hann_band(scipy.fft.rfft(inside, axis=-1, workers=plan.fft_workers), plan.band, plan.stop - plan.start)
+        if len(plan.mean_bins):
+            mean = np.mean(inside, axis=-1, dtype=np.float32)[..., None]
+            spec[..., plan.mean_bins] -= mean * plan.window_band
+        p = np.abs(spec)
+        np.square(p, out=p)
     if p.ndim == 3:
         p = p.mean(axis=1)
     if not ok.all():
         p[~ok] = 0.0
     p *= plan.factor
-    kept = p.copy() if keep else None
-    e, pk, snr = band_metrics(plan.freqs, p, plan.df, scratch=True)
+    kept = p if keep else None
+    e, pk, snr = band_metrics(plan.freqs, p, plan.df)
+    ok &= np.isfinite(e)  # a finite record whose power overflows float32
     nan = np.float64("nan")
     return ok, np.where(ok, e, nan), np.where(ok, pk, nan), np.where(ok, snr, nan), kept
 

@@ -4,10 +4,17 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+import scipy.fft
 import scipy.signal
 
 from overlay.gate import Gate
-from overlay.spectra import given_spectra, hann, parabolic_peak, periodogram, records_spectra
+from overlay.spectra import (
+    given_spectra,
+    hann,
+    parabolic_peak,
+    periodogram,
+    records_spectra,
+)
 
 FS = 51200.0
 
@@ -176,3 +183,47 @@ def test_stage_band_psd_equals_scipy_periodogram(n: int, band: tuple[float, floa
     sel = (f_ref >= band[0]) & (f_ref <= band[1])
     np.testing.assert_allclose(sp.band_freqs, f_ref[sel])
     np.testing.assert_allclose(sp.band_psd, p_ref[:, sel], rtol=2e-4, atol=1e-7 * p_ref.max())
+
+
+def test_snr_of_sine_in_white_noise_worked_value() -> None:
+    # Worked value from window theory and the periodogram's distribution:
+    # a bin-centred sine of amplitude A under a Hann window (coherent gain 0.50, ENBW 1.50 bins —
+    # Harris, Proc. IEEE 66(1), 1978, Table 1) peaks at the one-sided density A²·N/(3·fs);
+    # white noise of variance σ² has the mean density 2σ²/fs and each periodogram ordinate is
+    # exponentially distributed (χ² with 2 degrees of freedom; Bendat & Piersol, Random Data — from
+    # memory), so the in-band median is ln 2 times the mean.  SNR = A²·N / (6·ln 2·σ²):
+    # N = 4096, A = 1, σ = 1 → 984.9 → 29.93 dB.
+    n, amp, sigma = 4096, 1.0, 1.0
+    t = np.arange(n) / FS
+    k = 200  # 2500 Hz, bin-centred at 12.5 Hz spacing, inside 400–8000 Hz
+    rng = np.random.default_rng(21)
+    x = (amp * np.sin(2 * np.pi * k * FS / n * t) + rng.normal(0, sigma, (64, n))).astype(np.float32)
+    sp = records_spectra(x, _gate(n), (400.0, 8000.0))
+    expected = 10 * np.log10(amp**2 * n / (6 * np.log(2) * sigma**2))
+    assert expected == pytest.approx(29.93, abs=0.01)
+    assert np.mean(sp.snr_db) == pytest.approx(expected, abs=0.3)
+
+
+@pytest.mark.parametrize("n, band", [(1024, (0.0, FS / 2)), (777, (0.0, FS / 2)), (1000, (400.0, 8000.0))])
+def test_shots_and_float64_records_match_scipy_periodogram(n: int, band: tuple[float, float]) -> None:
+    # reference library: scipy.signal.periodogram per shot, shots averaged as power; float64 input
+    # gives the float32 result; the window applied to the band bins holds at DC and Nyquist too
+    x = np.random.default_rng(22).normal(0.2, 1.0, (3, 2, n))
+    _, p_ref = scipy.signal.periodogram(x, FS, window="hann", scaling="density")
+    f_ref = scipy.fft.rfftfreq(n, 1 / FS)
+    sel = (f_ref >= band[0]) & (f_ref <= band[1])
+    sp = records_spectra(x, _gate(n), band, keep_psd=True)
+    np.testing.assert_allclose(sp.band_psd, p_ref.mean(axis=1)[:, sel], rtol=2e-4, atol=1e-7 * p_ref.max())
+    sp32 = records_spectra(x.astype(np.float32), _gate(n), band, keep_psd=True)
+    np.testing.assert_allclose(sp.band_psd, sp32.band_psd, rtol=1e-6)
+
+
+@pytest.mark.parametrize("where", [0, 99, 100, 600, 1099, 1100, 2047])
+def test_one_bad_sample_anywhere_is_caught(where: int) -> None:
+    # the finiteness check is one sum over the whole record: a NaN or inf at the first, last, gate-edge
+    # or mid-gate sample must each be caught (scan-bundle.md: NaN or inf in a point's data → invalid)
+    for bad in (np.nan, np.inf, -np.inf):
+        x = np.random.default_rng(23).normal(0, 1.0, (3, 2048)).astype(np.float32)
+        x[1, where] = bad
+        sp = records_spectra(x, Gate(100, 1100, FS, "t"), (400.0, 8000.0))
+        assert sp.finite.tolist() == [True, False, True], (where, bad)

@@ -114,7 +114,7 @@ FIELD_DOCS: dict[str, dict[str, str]] = {
     "points": {
         "ver_db": "vibration energy ratio against the scan's reference, dB",
         "energy": "band mean-square velocity normal to the surface, (m/s)2",
-        "snr_db": "in-band peak over median PSD, dB",
+        "snr_db": "in-band peak over the noise floor (median of every second band bin), dB",
         "incidence_deg": "angle of the laser beam to the surface normal",
         "invalid_reason": "why the point is not used (empty when valid)",
     },
