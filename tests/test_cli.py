@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 import subprocess
 import sys
 from pathlib import Path
@@ -210,3 +211,44 @@ def test_collinear_targets_for_an_affine_fit_exit_4_nothing_written(tmp_path: Pa
     err = capsys.readouterr().err
     assert "L0, L1, L2, L3 are (nearly) collinear" in err and "S-1: targets:" in err
     assert _files(tmp_path / "out") == []
+
+
+def _run_with_stderr(site: Path, out: Path, *, terminal: bool) -> str:
+    """Run the console script with stderr on a pipe or on a pseudo-terminal; what it wrote there."""
+    cmd = [str(Path(sys.executable).parent / "overlay"), "run", str(site), "--out", str(out), "--no-pictures"]
+    if not terminal:
+        done = subprocess.run(cmd, capture_output=True, text=True, check=True)
+        return done.stderr
+    import fcntl  # POSIX only, like the test
+    import pty
+    import struct
+    import termios
+
+    leader, follower = pty.openpty()
+    fcntl.ioctl(follower, termios.TIOCSWINSZ, struct.pack("HHHH", 24, 120, 0, 0))  # a 120-column terminal
+    try:
+        subprocess.run(cmd, stdout=subprocess.DEVNULL, stderr=follower, check=True)
+        os.close(follower)
+        chunks = []
+        while True:
+            try:
+                data = os.read(leader, 65536)
+            except OSError:  # Linux: EIO once the follower side is closed and drained
+                break
+            if not data:
+                break
+            chunks.append(data)
+    finally:
+        os.close(leader)
+    return b"".join(chunks).decode(errors="replace")
+
+
+@pytest.mark.skipif(sys.platform == "win32", reason="needs a POSIX pseudo-terminal")
+def test_progress_bars_on_a_terminal_only(tmp_path: Path) -> None:
+    # a records bundle so the per-point bar has work; the bars go to stderr on a terminal, nothing off it
+    write_bundle(tmp_path / "S-1")
+    site = write_site(tmp_path, ["S-1"])
+    quiet = _run_with_stderr(site, tmp_path / "out-pipe", terminal=False)
+    assert "scans" not in quiet and "\r" not in quiet
+    shown = _run_with_stderr(site, tmp_path / "out-tty", terminal=True)
+    assert "scans" in shown and "points" in shown and "48" in shown

@@ -227,3 +227,12 @@ def test_one_bad_sample_anywhere_is_caught(where: int) -> None:
         x[1, where] = bad
         sp = records_spectra(x, Gate(100, 1100, FS, "t"), (400.0, 8000.0))
         assert sp.finite.tolist() == [True, False, True], (where, bad)
+
+
+def test_progress_counts_every_point_once() -> None:
+    # the progress callback gets each chunk's size once, whatever the threads
+    x = np.random.default_rng(24).normal(0, 1.0, (1234, 512)).astype(np.float32)
+    for threads in (1, 2):
+        seen: list[int] = []
+        records_spectra(x, _gate(512), (400.0, 8000.0), chunk=100, threads=threads, progress=seen.append)
+        assert sum(seen) == 1234 and len(seen) == 13
