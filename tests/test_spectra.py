@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from hypothesis import assume, given, settings
-from hypothesis import strategies as st
 import scipy.fft
 import scipy.signal
+from hypothesis import assume, given, settings
+from hypothesis import strategies as st
 
 from overlay.gate import Gate
 from overlay.spectra import (
