@@ -11,7 +11,8 @@ import os
 import tempfile
 import warnings
 from pathlib import Path
-from typing import TYPE_CHECKING, Iterator, Sequence
+from concurrent.futures import ProcessPoolExecutor
+from typing import TYPE_CHECKING, Any, Callable, Iterator, Sequence
 
 from .errors import ExporterError, OutputConflictError, OverlayError
 
@@ -85,24 +86,67 @@ def select_exporters(formats: Sequence[str], source: Path | None = None) -> dict
     return chosen
 
 
+def _picture_tasks(result: "RunResult", dxf_path: Path | None) -> list[tuple[str, str, int, int]]:
+    """(name, kind, scan index, zone index) of every picture, in report order."""
+    tasks = [("site-map", "site", -1, -1)]
+    for i, s in enumerate(result.scans):
+        tasks.append((f"scan-{s.scan_id}", "scan", i, -1))
+        tasks += [(f"zone-{z.zone_id}", "zone", i, k) for k, z in enumerate(s.zones)]
+    return tasks + ([("dxf-preview", "dxf", -1, -1)] if dxf_path is not None else [])
+
+
 def picture_names(result: "RunResult", with_dxf: bool) -> list[str]:
     """Names of the pictures a run draws (files ``<name>.png`` in ``<basename>-pictures/``)."""
-    names = ["site-map"] + [f"scan-{s.scan_id}" for s in result.scans] + [f"zone-{z.zone_id}" for s in result.scans for z in s.zones]
-    return names + (["dxf-preview"] if with_dxf else [])
+    return [t[0] for t in _picture_tasks(result, Path("drawing.dxf") if with_dxf else None)]
 
 
-def draw_pictures(result: "RunResult", dxf_path: Path | None) -> dict[str, bytes]:
-    """Every picture of the run as PNG bytes, by name."""
+_SHARED: dict[str, Any] = {}  # what a picture worker process draws from (set once per process)
+
+
+def _share(result: "RunResult", dxf_path: Path | None) -> None:
+    _SHARED.update(result=result, dxf=dxf_path)
+
+
+def _draw(task: tuple[str, str, int, int]) -> bytes:
     from . import pictures
 
-    base = result.site.dxf.base
-    images = {"site-map": pictures.site_map(result, pictures.drawing_lines(base) if base else None)}
-    for s in result.scans:
-        images[f"scan-{s.scan_id}"] = pictures.scan_preview(result, s)
-        for z in s.zones:
-            images[f"zone-{z.zone_id}"] = pictures.zone_sheet(result, s, z)
-    if dxf_path is not None:
-        images["dxf-preview"] = pictures.dxf_preview(dxf_path)
+    _, kind, i, k = task
+    result, dxf_path = _SHARED["result"], _SHARED["dxf"]
+    if kind == "site":
+        base = result.site.dxf.base
+        return pictures.site_map(result, pictures.drawing_lines(base) if base else None)
+    if kind == "scan":
+        return pictures.scan_preview(result, result.scans[i])
+    if kind == "zone":
+        return pictures.zone_sheet(result, result.scans[i], result.scans[i].zones[k])
+    return pictures.dxf_preview(dxf_path)
+
+
+def draw_pictures(result: "RunResult", dxf_path: Path | None, *, jobs: int = 1,
+                  progress: Callable[[int], None] | None = None) -> dict[str, bytes]:
+    """Every picture of the run as PNG bytes, by name; on ``jobs`` processes when there are many.
+
+    Pictures cost far more than the numbers over a campaign (a few tenths of a second each,
+    thousands of them), and each is independent of the others.
+    """
+    tasks = _picture_tasks(result, dxf_path)
+    if jobs <= 1 or len(tasks) < 4 * jobs:
+        _share(result, dxf_path)
+        try:
+            drawn = []
+            for t in tasks:
+                drawn.append(_draw(t))
+                if progress is not None:
+                    progress(1)
+        finally:
+            _SHARED.clear()
+        return {t[0]: png for t, png in zip(tasks, drawn)}
+    with ProcessPoolExecutor(max_workers=jobs, initializer=_share, initargs=(result, dxf_path)) as pool:
+        images = {}
+        for t, png in zip(tasks, pool.map(_draw, tasks, chunksize=max(1, len(tasks) // (8 * jobs)))):
+            images[t[0]] = png
+            if progress is not None:
+                progress(1)
     return images
 
 
@@ -128,10 +172,12 @@ def print_pdf(html_path: Path, pdf_path: Path, browser: str) -> None:
 
 
 def write_outputs(result: "RunResult", out_dir: Path, *, overwrite: bool = False, pictures: bool = True,
-                  pdf: bool | None = None) -> dict[str, Path]:
+                  pdf: bool | None = None, jobs: int = 1,
+                  progress: Callable[[int], None] | None = None) -> dict[str, Path]:
     """Write every requested format, the reports and (by default) the pictures; all move into place
     together or none does.  ``pdf``: True prints the HTML report to PDF (Chromium needed), None
-    does so when Chromium is installed (a failure is then only a warning), False never."""
+    does so when Chromium is installed (a failure is then only a warning), False never.
+    ``jobs``: processes for the pictures; ``progress`` is called once per picture drawn."""
     from .report import run_report
     from .report_html import site_report
 
@@ -160,7 +206,8 @@ def write_outputs(result: "RunResult", out_dir: Path, *, overwrite: bool = False
                     raise ExporterError(f"exporter {fmt!r} failed: {type(exc).__name__}: {exc}", source=paths[fmt]) from exc
             temps[paths["report"]].write_text(run_report(result), encoding="utf-8")
             if pictures:
-                images = draw_pictures(result, temps[paths["dxf"]] if "dxf" in exporters else None)
+                images = draw_pictures(result, temps[paths["dxf"]] if "dxf" in exporters else None, jobs=jobs,
+                                       progress=progress)
                 for name, png in images.items():
                     temps[pics[name]].write_bytes(png)
                 temps[paths["html"]].write_text(site_report(result, images), encoding="utf-8")

@@ -215,7 +215,7 @@ def test_collinear_targets_for_an_affine_fit_exit_4_nothing_written(tmp_path: Pa
 
 def _run_with_stderr(site: Path, out: Path, *, terminal: bool) -> str:
     """Run the console script with stderr on a pipe or on a pseudo-terminal; what it wrote there."""
-    cmd = [str(Path(sys.executable).parent / "overlay"), "run", str(site), "--out", str(out), "--no-pictures"]
+    cmd = [str(Path(sys.executable).parent / "overlay"), "run", str(site), "--out", str(out), "--no-pdf"]
     if not terminal:
         done = subprocess.run(cmd, capture_output=True, text=True, check=True)
         return done.stderr
@@ -249,6 +249,6 @@ def test_progress_bars_on_a_terminal_only(tmp_path: Path) -> None:
     write_bundle(tmp_path / "S-1")
     site = write_site(tmp_path, ["S-1"])
     quiet = _run_with_stderr(site, tmp_path / "out-pipe", terminal=False)
-    assert "scans" not in quiet and "\r" not in quiet
+    assert "scans" not in quiet and "pictures" not in quiet and "\r" not in quiet
     shown = _run_with_stderr(site, tmp_path / "out-tty", terminal=True)
-    assert "scans" in shown and "points" in shown and "48" in shown
+    assert "scans" in shown and "points" in shown and "48" in shown and "pictures" in shown

@@ -178,3 +178,16 @@ def test_pdf_report_where_chromium_is_installed(demo: dict, tmp_path: Path, writ
     paths = write_outputs(demo["result"], tmp_path, pdf=True)
     data = paths["pdf"].read_bytes()
     assert data[:5] == b"%PDF-" and len(data) > 50_000
+
+
+def test_pictures_on_two_processes_equal_those_on_one(demo: dict) -> None:
+    # the same PNG bytes whichever process draws them, in the same order; progress once per picture
+    from overlay.outputs import draw_pictures, picture_names
+
+    seen: list[int] = []
+    one = draw_pictures(demo["result"], None, jobs=1)
+    two = draw_pictures(demo["result"], None, jobs=2, progress=seen.append)
+    assert list(two) == list(one) == picture_names(demo["result"], with_dxf=False)
+    assert len(one) >= 8  # enough pictures that two processes are used
+    assert all(two[k] == one[k] for k in one)
+    assert sum(seen) == len(one)

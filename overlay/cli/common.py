@@ -8,7 +8,7 @@ from pathlib import Path
 from tqdm import tqdm
 
 from ..merge import merge_findings
-from ..outputs import write_outputs
+from ..outputs import picture_names, write_outputs
 from ..campaign import run_campaign, summary
 from ..report import run_report
 from ..site import Site
@@ -24,7 +24,7 @@ def add_output_options(p: argparse.ArgumentParser, default_out: str) -> None:
     p.add_argument("--pdf", action="store_true", default=None,
                    help="print the site report to PDF, or fail (default: when headless Chromium is installed)")
     p.add_argument("--no-pdf", dest="pdf", action="store_false", help="no PDF of the site report")
-    p.add_argument("-j", "--jobs", type=int, default=1, metavar="N", help="scans processed in N parallel processes (default 1)")
+    p.add_argument("-j", "--jobs", type=int, default=1, metavar="N", help="scans and pictures processed in N parallel processes (default 1)")
     p.add_argument("--dask", metavar="ADDRESS", default=None,
                    help="run the scans on the Dask scheduler at ADDRESS (optional extra 'dask')")
     p.add_argument("--cache", metavar="DIR", type=Path, default=None,
@@ -58,7 +58,11 @@ def run_and_write(site: Site, out: Path, args: argparse.Namespace, *, overwrite:
         print(f"overlay: error: {f.message}", file=sys.stderr)
     if c.result is None:
         return c.exit_code or 3
-    paths = write_outputs(c.result, out, overwrite=overwrite, pictures=not args.no_pictures, pdf=args.pdf)
+    n_pictures = len(picture_names(c.result, "dxf" in c.result.site.formats)) if not args.no_pictures else 0
+    with tqdm(total=n_pictures, desc="pictures", unit="png", disable=True if hide or not n_pictures else None,
+              file=sys.stderr) as drawn:
+        paths = write_outputs(c.result, out, overwrite=overwrite, pictures=not args.no_pictures, pdf=args.pdf,
+                              jobs=args.jobs, progress=drawn.update)
     if not args.quiet:
         print(run_report(c.result))
     print("written:")
