@@ -226,18 +226,19 @@ def _run_with_stderr(site: Path, out: Path, *, terminal: bool) -> str:
 
     leader, follower = pty.openpty()
     fcntl.ioctl(follower, termios.TIOCSWINSZ, struct.pack("HHHH", 24, 120, 0, 0))  # a 120-column terminal
+    chunks = []
     try:
-        subprocess.run(cmd, stdout=subprocess.DEVNULL, stderr=follower, check=True)
-        os.close(follower)
-        chunks = []
+        proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=follower)
+        os.close(follower)  # the child holds its own copy; read while it runs, so it never blocks on a full pty
         while True:
             try:
                 data = os.read(leader, 65536)
-            except OSError:  # Linux: EIO once the follower side is closed and drained
+            except OSError:  # Linux: EIO once the child has exited and the output is drained
                 break
             if not data:
                 break
             chunks.append(data)
+        assert proc.wait(timeout=120) == 0
     finally:
         os.close(leader)
     return b"".join(chunks).decode(errors="replace")
