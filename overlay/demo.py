@@ -394,6 +394,6 @@ def write_assets(path: Path, st: dict) -> None:
         rows.append({"asset_id": asset_id, "structure": st["id"], "span": span, "bay": bay,
                      "element_type": "deck soffit panel", "area_m2": round(poly.area, 3)})
         geoms.append(poly)
-    if path.exists():
-        path.unlink()
+    for old in [path, *path.parent.glob(f"{path.stem}.before-overlay*{path.suffix}")]:
+        old.unlink(missing_ok=True)  # a new invented register: the backups of the previous one go with it
     gpd.GeoDataFrame(rows, geometry=geoms, crs=st["crs"]).to_file(path, layer="deck_panels", driver="GPKG")

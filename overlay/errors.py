@@ -76,6 +76,12 @@ class OutputConflictError(OverlayError, FileExistsError):
     exit_code = EXIT_OUTPUT_CONFLICT
 
 
+class OutputWriteError(OverlayError, OSError):
+    """An output cannot be written: the folder is read-only, a file, or the disk is full."""
+
+    exit_code = EXIT_OUTPUT_CONFLICT
+
+
 class ExporterError(OverlayError, RuntimeError):
     """An exporter plugin is broken or failed while writing."""
 
@@ -92,3 +98,11 @@ class BundleWarning(OverlayWarning):
 
 class RegistrationWarning(OverlayWarning):
     """A fit or CRS check passed only with a caveat (override, outside area of use)."""
+
+
+class OutputWarning(OverlayWarning):
+    """An optional output was left out (a PDF that could not be printed); the rest is written."""
+
+
+class CacheWarning(OverlayWarning):
+    """A cache entry could not be trusted; the scan is computed again (no number changes)."""

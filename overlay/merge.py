@@ -1,40 +1,57 @@
-"""Merge findings into the owner's asset GeoPackage, idempotently and all-or-nothing.
+"""Merge findings into the owner's asset GeoPackage inside the file's own SQLite transaction.
 
-Each zone, cut by the assets it overlaps, becomes rows of a findings layer in
-the owner's file, keyed by the scan: rerunning the same scans replaces their
-own rows, never duplicates them; rows of other scans, other inspections and
-every other layer stay as they were.  The work happens on a copy beside the
-file; only when the copy is complete and passes SQLite's integrity check is
-the original kept as a backup and the copy moved into its place.  A failure
-anywhere leaves the owner's file byte for byte as it was.
+A GeoPackage is an SQLite database, and SQLite's atomic commit (rollback
+journal or write-ahead log, whichever the file uses) is the guarantee: the
+merge takes the write lock first (``BEGIN IMMEDIATE``, a bounded wait, then a
+refusal naming the holder where the system tells), does every read and write
+on that one connection, checks the result, and commits — or rolls back and
+leaves the file as it was.  Another program's committed edit, in either
+journal mode, is never lost, and two runs never interleave.
+
+:func:`prepare_merge` stops just before the commit, so the caller can decide
+the merge together with its other outputs (both or neither); ``commit`` or
+``rollback`` ends it.  Each zone, cut by the assets it overlaps, becomes rows
+keyed by source and scan: a rerun replaces its own rows, never duplicates them;
+rows of other scans, other inspections and every other table stay as they were.
 """
 
 from __future__ import annotations
 
 import contextlib
+import datetime as dt
 import hashlib
 import json
 import os
-import shutil
 import sqlite3
-import tempfile
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
-from typing import TYPE_CHECKING, Iterator
+from typing import TYPE_CHECKING, Any
 
-import geopandas as gpd
 import numpy as np
-import pandas as pd
-import pyogrio
 import pyproj
+import shapely
+from shapely.geometry import MultiPolygon
 
-from .errors import OutputConflictError, SiteFileError
+from . import gpkg_sql
+from .elements import asset_table_sql
+from .errors import CRSCheckError, OutputConflictError, RegistrationError, SiteFileError
 from .frames import reproject
+from .staging import glob_escape, part_path, remove_stale_parts
 
 if TYPE_CHECKING:
     from .pipeline import RunResult
 
 SOURCE = "overlay"
+WAIT_S = 10.0  # how long a merge waits for another program's write lock before it refuses (exit 5)
+KEEP_BACKUPS = 3
+RESERVED_PREFIXES = ("gpkg_", "rtree_", "sqlite_", "gpkgext_")
+KEY_FIELDS = ("source", "scan_id", "zone_id", "asset_id")
+FIELDS = {  # the findings table we create; an existing one must have KEY_FIELDS, the rest is added if missing
+    "asset_id": "TEXT", "source": "TEXT", "scan_id": "TEXT", "zone_id": "TEXT", "defect_id": "TEXT", "class": "TEXT",
+    "threshold_db": "REAL", "affected_area_m2": "REAL", "basis": "TEXT", "peak_hz": "REAL", "depth_low_m": "REAL",
+    "depth_high_m": "REAL", "confidence": "REAL", "inspected": "TEXT", "method": "TEXT", "run_key": "TEXT",
+}
+GEOMETRY_TYPES = ("MULTIPOLYGON", "GEOMETRY", "MULTISURFACE")
 
 
 @dataclass(frozen=True)
@@ -45,6 +62,8 @@ class MergeSummary:
     replaced: int
     kept: int
     backup: Path | None
+    created: bool = False
+    added_fields: tuple[str, ...] = ()
 
 
 def run_key(result: "RunResult") -> str:
@@ -53,106 +72,330 @@ def run_key(result: "RunResult") -> str:
     return hashlib.sha256(text.encode()).hexdigest()[:16]
 
 
-def findings_frame(result: "RunResult", crs: object) -> gpd.GeoDataFrame:
-    """The rows this run contributes: one per (zone, asset) piece."""
+def check_layer_name(name: str, asset_layer: str | None, *, source: str | None = None) -> None:
+    """A findings layer may not be the asset layer nor a name the GeoPackage or SQLite reserve (exit 3)."""
+    low = name.lower()
+    if asset_layer is not None and low == asset_layer.lower():
+        raise SiteFileError(f"findings layer {name!r} is the asset layer; name a layer of its own", source=source,
+                            field="merge.findings_layer")
+    if low.startswith(RESERVED_PREFIXES):
+        raise SiteFileError(f"findings layer {name!r} starts with a prefix reserved by GeoPackage/SQLite "
+                            f"({', '.join(RESERVED_PREFIXES)})", source=source, field="merge.findings_layer")
+
+
+def findings_rows(result: "RunResult") -> tuple[list[dict[str, Any]], list[Any]]:
+    """The rows this run contributes (one per zone and asset piece) and their geometries in the map CRS."""
     spec = result.site.merge
     assert spec is not None
     by_id = {z.zone_id: z for z in result.zones}
     key = run_key(result)
-    rows = []
+    rows, geoms = [], []
     for p in result.asset_pieces:
         z = by_id[p["zone_id"]]
         rows.append({
             "asset_id": p["asset_id"], "source": SOURCE, "scan_id": p["scan_id"], "zone_id": p["zone_id"],
             "defect_id": p["defect_id"], "class": p["class"], "threshold_db": z.threshold_db,
             "affected_area_m2": round(p["area_m2"], 6), "basis": result.site.basis,
-            "peak_hz": z.peak_hz, "depth_low_m": z.depth_low_m, "depth_high_m": z.depth_high_m,
+            "peak_hz": _real(z.peak_hz), "depth_low_m": _real(z.depth_low_m), "depth_high_m": _real(z.depth_high_m),
             "confidence": z.confidence, "inspected": z.surveyed, "method": spec.method, "run_key": key,
-            "geometry": p["geometry"],
         })
-    if not rows:
-        return gpd.GeoDataFrame({"asset_id": [], "source": [], "scan_id": []}, geometry=gpd.GeoSeries([], crs=crs), crs=crs)
-    return gpd.GeoDataFrame(rows, geometry="geometry", crs=crs)
+        geoms.append(p["geometry"])
+    return rows, geoms
 
 
-@contextlib.contextmanager
-def _write_lock(target: Path) -> Iterator[None]:
-    """Hold SQLite's write lock on the owner's file for the whole merge; refuse if someone else holds it."""
-    con = sqlite3.connect(target, timeout=0.0, isolation_level=None)
-    try:
+def _real(v: float) -> float | None:
+    return float(v) if np.isfinite(v) else None
+
+
+def _scans_of(value: object) -> set[str]:
+    """The scans a row belongs to (a mosaic zone lists several, "S-101;S-106")."""
+    return {s for s in str(value or "").split(";") if s}
+
+
+def check_placement(result: "RunResult") -> None:
+    """Before anything is removed: the zones must land on the assets they say they belong to.
+
+    A wrong (but valid) CRS or placement puts every zone beside its asset; a merge would then
+    replace good findings with none.
+    """
+    if result.assets is None or not result.zones:
+        return
+    ids = set(result.assets.ids)
+    hits: dict[str, set[str]] = {}
+    for p in result.asset_pieces:
+        hits.setdefault(p["zone_id"], set()).add(p["asset_id"])
+    if not hits:
+        raise RegistrationError(
+            f"none of the {len(result.zones)} zone(s) overlaps an asset of layer {result.assets.layer!r}; the map "
+            "CRS or placement is likely wrong — nothing was merged", source=result.site.path, field="map")
+    wrong = [z for z in result.zones if z.element in ids and z.element not in hits.get(z.zone_id, set())]
+    if wrong:
+        z = wrong[0]
+        landed = ", ".join(sorted(hits.get(z.zone_id, set()))) or "no asset"
+        raise RegistrationError(
+            f"{len(wrong)} zone(s) do not touch the asset they belong to (e.g. {z.zone_id} of {z.element} lands on "
+            f"{landed}); check the map placement and the scans' element ids — nothing was merged",
+            source=result.site.path, field="map")
+
+
+@dataclass
+class OpenMerge:
+    """A merge written inside the owner's open transaction, waiting for ``commit`` or ``rollback``."""
+
+    con: sqlite3.Connection
+    summary: MergeSummary
+    _done: bool = field(default=False, repr=False)
+
+    def commit(self) -> MergeSummary:
         try:
-            con.execute("BEGIN IMMEDIATE")
-        except sqlite3.OperationalError as exc:
-            raise OutputConflictError(f"the GeoPackage is locked by another program ({exc}); close it and rerun",
-                                      source=target) from exc
-        yield
-    finally:
+            self.con.execute("COMMIT")
+        except sqlite3.Error as exc:
+            self.rollback()
+            raise OutputConflictError(f"the merge could not be committed ({exc}); the file is as it was",
+                                      source=self.summary.target) from exc
+        self._close()
+        return self.summary
+
+    def rollback(self) -> None:
+        if self._done:
+            return
+        with contextlib.suppress(sqlite3.Error):
+            self.con.execute("ROLLBACK")
+        self._close()
+        if self.summary.backup is not None:  # the backup of a merge that did not happen is not needed
+            with contextlib.suppress(FileNotFoundError):
+                self.summary.backup.unlink()
+
+    def _close(self) -> None:
+        self._done = True
+        self.con.close()
+
+
+def prepare_merge(result: "RunResult", *, replace_findings: bool = False, wait_s: float | None = None,
+                  now: dt.datetime | None = None) -> OpenMerge:
+    """Lock the owner's file, check, back it up and write this run's findings — everything but the commit.
+
+    Refuses (nothing changed) when the file is locked past ``wait_s`` (exit 5), when the findings
+    layer is not ours to write (exit 3), when the asset layer changed since the run read it (exit 5),
+    when the zones miss their assets (exit 4), and when a scan would lose more findings than it
+    gains unless ``replace_findings`` (exit 5).
+    """
+    site = result.site
+    spec, elements = site.merge, site.elements
+    assert spec is not None and elements is not None and result.assets is not None
+    target, name = elements.source, spec.findings_layer
+    check_layer_name(name, result.assets.layer, source=str(site.path))
+    check_placement(result)
+    remove_stale_parts(target.parent, f".{target.name}.")
+    wait_s = WAIT_S if wait_s is None else wait_s
+    con = gpkg_sql.connect(target, wait_s)
+    try:
+        _begin(con, target, wait_s)
+        summary = _write(con, result, target, name, replace_findings, spec.backup, spec.keep_backups, now)
+        _check(con, target)
+    except BaseException:
         with contextlib.suppress(sqlite3.Error):
             con.execute("ROLLBACK")
         con.close()
+        raise
+    return OpenMerge(con, summary)
 
 
-def merge_findings(result: "RunResult") -> MergeSummary:
-    """Write this run's findings into the owner's asset GeoPackage named by [elements] and [merge]."""
-    site = result.site
-    spec, elements = site.merge, site.elements
-    assert spec is not None and elements is not None
-    target = elements.source
-    layer = spec.findings_layer
-    if elements.layer == layer:
-        raise SiteFileError(f"findings layer {layer!r} would overwrite the asset layer", source=site.path,
-                            field="merge.findings_layer")
-    scans = {s.scan_id for s in result.scans}
-    with _write_lock(target):
-        new = _in_asset_crs(findings_frame(result, result.crs), target, elements.layer)
-        fd, tmp_name = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".merge.gpkg", dir=target.parent)
-        os.close(fd)
-        tmp = Path(tmp_name)
-        try:
-            shutil.copy2(target, tmp)
-            layers = {row[0] for row in pyogrio.list_layers(tmp)}
-            old = pyogrio.read_dataframe(tmp, layer=layer) if layer in layers else None
-            if old is not None and len(old):
-                # a row is this run's own when it came from us and from any scan of this run
-                # (mosaic zones list several scans, "S-101;S-106")
-                own_scan = old["scan_id"].fillna("").map(lambda v: bool(set(str(v).split(";")) & scans))
-                mine = (old["source"] == SOURCE) & own_scan
-                kept, replaced = old[~mine], int(mine.sum())
-            else:
-                kept, replaced = None, 0
-            combined = new if kept is None or not len(kept) else gpd.GeoDataFrame(
-                pd.concat([kept, new], ignore_index=True), geometry="geometry", crs=new.crs)
-            pyogrio.write_dataframe(combined, tmp, layer=layer, driver="GPKG", promote_to_multi=True)
-            _check(tmp)
-            backup = None
-            if spec.backup:
-                backup = target.with_name(f"{target.stem}.before-overlay{target.suffix}")
-                shutil.copy2(target, backup)
-            os.replace(tmp, target)
-        finally:
-            with contextlib.suppress(FileNotFoundError):
-                tmp.unlink()
-    return MergeSummary(target, layer, len(new), replaced, 0 if kept is None else len(kept), backup)
+def merge_findings(result: "RunResult", *, replace_findings: bool = False, wait_s: float | None = None) -> MergeSummary:
+    """Prepare and commit at once, for a caller that decides no other output with the merge."""
+    return prepare_merge(result, replace_findings=replace_findings, wait_s=wait_s).commit()
 
 
-def _in_asset_crs(frame: gpd.GeoDataFrame, target: Path, asset_layer: str | None) -> gpd.GeoDataFrame:
-    """The findings in the CRS of the owner's asset layer, through our transformation check."""
-    crs = pyogrio.read_info(target, layer=asset_layer).get("crs")
-    if crs is None or frame.crs is None:
-        return frame
-    dst = pyproj.CRS.from_user_input(crs)
-    if dst.equals(frame.crs) or frame.empty:
-        return frame.set_crs(dst, allow_override=True)
-    moved, _, _ = reproject(np.asarray(frame.geometry.values, dtype=object), frame.crs, dst, source=str(target))
-    return gpd.GeoDataFrame(frame.drop(columns="geometry"), geometry=gpd.GeoSeries(moved, crs=dst), crs=dst)
-
-
-def _check(path: Path) -> None:
-    con = sqlite3.connect(path)
+def _begin(con: sqlite3.Connection, target: Path, wait_s: float) -> None:
     try:
-        ok = con.execute("PRAGMA integrity_check").fetchone()[0]
+        con.execute("BEGIN IMMEDIATE")
+    except sqlite3.OperationalError as exc:
+        holder = lock_holder(target)
+        who = f" by {holder}" if holder else " by another program"
+        raise OutputConflictError(f"the GeoPackage is locked{who} (waited {wait_s:g} s: {exc}); close its edit "
+                                  "session and rerun", source=target) from exc
+    if not gpkg_sql.is_geopackage(con):
+        raise SiteFileError("not a GeoPackage (application_id is not 'GPKG')", source=target, field="elements.source")
+
+
+def _write(con: sqlite3.Connection, result: "RunResult", target: Path, name: str, replace: bool, backup: bool,
+           keep: int, now: dt.datetime | None) -> MergeSummary:
+    site = result.site
+    src = str(target)
+    assert site.elements is not None and result.assets is not None
+    assets = asset_table_sql(con, site.elements, src)
+    if not assets.same_as(result.assets):
+        raise OutputConflictError("the asset layer changed while the run went on (another program edited it); "
+                                  "rerun to split the zones by the assets as they are now", source=target,
+                                  field=assets.layer)
+    layers = gpkg_sql.layers(con)
+    existing = {k.lower(): v for k, v in layers.items()}.get(name.lower())
+    if existing is None and name.lower() in {t.lower() for t in gpkg_sql.table_names(con)}:
+        raise SiteFileError(f"the file already has a table {name!r} that is not a feature layer; name another "
+                            "findings layer", source=src, field="merge.findings_layer")
+    asset_layer = {k.lower(): v for k, v in layers.items()}[assets.layer.lower()]
+    rows, geoms = findings_rows(result)
+    created, added_fields = False, ()
+    if existing is None:
+        layer, created = gpkg_sql.create_feature_table(
+            con, name, FIELDS, "MULTIPOLYGON", asset_layer.srs_id,
+            "findings of acoustic non-contact scans (written by overlay)"), True
+    else:
+        layer = existing
+        _check_shape(con, layer, src)
+        added_fields = tuple(gpkg_sql.add_columns(con, layer.table, dict(FIELDS)))
+    geoms = _into(geoms, result.crs, layer.crs, src)
+    scans = {s.scan_id for s in result.scans}
+    own = [(fid, sid) for fid, sid in con.execute(
+        f"SELECT {gpkg_sql.quote(layer.fid)}, scan_id FROM {gpkg_sql.quote(layer.table)} WHERE source = ?", (SOURCE,))
+        if _scans_of(sid) & scans]
+    if not replace:
+        _refuse_losses(own, rows, scans, target, layer.table)
+    total = con.execute(f"SELECT count(*) FROM {gpkg_sql.quote(layer.table)}").fetchone()[0]
+    copy = make_backup(target, keep, now) if backup else None
+    for k in range(0, len(own), 500):
+        chunk = [fid for fid, _ in own[k:k + 500]]
+        con.execute(f"DELETE FROM {gpkg_sql.quote(layer.table)} WHERE {gpkg_sql.quote(layer.fid)} IN "
+                    f"({', '.join('?' for _ in chunk)})", chunk)
+    added = gpkg_sql.insert_features(con, layer, rows, [_as_multi(g) for g in geoms])
+    gpkg_sql.touch_contents(con, layer)
+    return MergeSummary(target, layer.table, added, len(own), total - len(own), copy, created, added_fields)
+
+
+def _as_multi(g: Any) -> MultiPolygon:
+    """Findings are MultiPolygons (a piece cut by an asset can fall apart)."""
+    if g.geom_type == "Polygon":
+        return MultiPolygon([g])
+    if g.geom_type == "MultiPolygon":
+        return g
+    return MultiPolygon([p for p in shapely.get_parts(g) if p.geom_type == "Polygon"])
+
+
+def _check_shape(con: sqlite3.Connection, layer: gpkg_sql.Layer, src: str) -> None:
+    """An existing findings layer must be able to hold our rows: key fields present, polygon geometry."""
+    have = {c.lower() for c in gpkg_sql.columns(con, layer.table)}
+    missing = [k for k in KEY_FIELDS if k not in have]
+    if missing:
+        raise SiteFileError(f"the existing layer {layer.table!r} has no field {missing[0]!r}, so it is not a findings "
+                            "layer of this tool; name another findings layer", source=src,
+                            field="merge.findings_layer")
+    if layer.geometry_type not in GEOMETRY_TYPES:
+        raise SiteFileError(f"the existing layer {layer.table!r} holds {layer.geometry_type} geometries; findings "
+                            "need MULTIPOLYGON", source=src, field="merge.findings_layer")
+
+
+def _into(geoms: list[Any], src_crs: pyproj.CRS | None, dst_crs: pyproj.CRS | None, source: str) -> list[Any]:
+    """The findings in the CRS of the findings layer, through our transformation check."""
+    if not geoms or src_crs is None or dst_crs is None or src_crs.equals(dst_crs):
+        if (src_crs is None) != (dst_crs is None):
+            raise CRSCheckError("the findings layer and the map frame do not both have a CRS", source=source,
+                                field="map.crs")
+        return geoms
+    moved, _, _ = reproject(np.asarray(geoms, dtype=object), src_crs, dst_crs, source=source)
+    return list(moved)
+
+
+def _refuse_losses(own: list[tuple[int, object]], rows: list[dict[str, Any]], scans: set[str], target: Path,
+                   table: str) -> None:
+    """A rerun may replace a scan's findings, not lose them silently: more removed than added is refused."""
+    removed: dict[str, int] = {}
+    for _, sid in own:
+        for s in _scans_of(sid) & scans:
+            removed[s] = removed.get(s, 0) + 1
+    added: dict[str, int] = {}
+    for r in rows:
+        for s in _scans_of(r["scan_id"]):
+            added[s] = added.get(s, 0) + 1
+    losing = sorted(s for s in removed if removed[s] > added.get(s, 0))
+    if losing:
+        s = losing[0]
+        raise OutputConflictError(
+            f"the merge would remove {removed[s]} earlier finding(s) of scan {s} and add {added.get(s, 0)} "
+            f"({len(losing)} scan(s) like this); if the zones really went (new thresholds, a repaired surface), "
+            "merge again with replace_findings (command line: --replace-findings)", source=target, field=table)
+
+
+def _check(con: sqlite3.Connection, target: Path) -> None:
+    """SQLite's own checks of the changed file, before the commit (GeoPackage standard, Req 6 and 7)."""
+    ok = con.execute("PRAGMA integrity_check").fetchone()[0]
+    bad_keys = con.execute("PRAGMA foreign_key_check").fetchall()
+    if ok != "ok" or bad_keys:
+        raise OutputConflictError(f"the merged file failed SQLite's checks ({ok}; foreign keys {bad_keys[:3]}); "
+                                  "rolled back, the file is as it was", source=target)
+
+
+# --- backups --------------------------------------------------------------------------------------
+
+def backup_name(target: Path, now: dt.datetime) -> Path:
+    """``<name>.before-overlay-<UTC time>.gpkg``; a second backup within the same second gets a counter."""
+    stamp = now.astimezone(dt.timezone.utc).strftime("%Y%m%dT%H%M%SZ")
+    path = target.with_name(f"{target.stem}.before-overlay-{stamp}{target.suffix}")
+    k = 2
+    while path.exists():
+        path = target.with_name(f"{target.stem}.before-overlay-{stamp}-{k}{target.suffix}")
+        k += 1
+    return path
+
+
+def backups_of(target: Path) -> list[Path]:
+    """This file's backups, oldest first (the legacy name of early versions counts as the oldest)."""
+    legacy = target.with_name(f"{target.stem}.before-overlay{target.suffix}")
+    stamped = sorted(target.parent.glob(f"{glob_escape(target.stem)}.before-overlay-*{target.suffix}"))
+    return ([legacy] if legacy.exists() else []) + stamped
+
+
+def make_backup(target: Path, keep: int, now: dt.datetime | None = None) -> Path:
+    """A copy of the owner's file as it is now, through SQLite's online backup API (WAL content included).
+
+    Called while our connection holds the write lock and has written nothing: a second
+    connection of the same SQLite library reads the committed state without dropping that lock.
+    Retention: the oldest backup (the owner's original before this tool first wrote) is kept
+    forever, of the others the newest ``keep``.
+    """
+    final = backup_name(target, now or dt.datetime.now(dt.timezone.utc))
+    part = part_path(target, "backup")
+    reader = sqlite3.connect(target)
+    try:
+        copy = sqlite3.connect(part)
+        try:
+            reader.backup(copy)
+        finally:
+            copy.close()
+        os.replace(part, final)
     finally:
-        con.close()
-    if ok != "ok":
-        raise OutputConflictError(f"merged copy failed SQLite's integrity check ({ok}); the original is unchanged",
-                                  source=path)
+        reader.close()
+        with contextlib.suppress(FileNotFoundError):
+            part.unlink()
+    old = backups_of(target)
+    for extra in old[1:-keep] if keep > 0 else old[1:]:
+        if extra != final:
+            extra.unlink()
+    return final
+
+
+# --- who holds the lock -------------------------------------------------------------------------
+
+def lock_holder(path: Path) -> str | None:
+    """The process holding a POSIX lock on the file or its WAL index, from /proc/locks (Linux), as text."""
+    try:
+        inodes = {(os.stat(p).st_dev, os.stat(p).st_ino) for p in (path, Path(f"{path}-shm")) if p.exists()}
+        lines = Path("/proc/locks").read_text().splitlines()
+    except OSError:
+        return None
+    for line in lines:
+        parts = line.split()
+        if len(parts) < 6 or parts[1] not in ("POSIX", "OFDLCK"):
+            continue
+        try:
+            pid = int(parts[4])
+            major, minor, ino = parts[5].split(":")
+            dev = os.makedev(int(major, 16), int(minor, 16))
+        except ValueError:
+            continue
+        if (dev, int(ino)) in inodes and pid not in (os.getpid(), -1):
+            try:
+                comm = Path(f"/proc/{pid}/comm").read_text().strip()
+            except OSError:
+                comm = "?"
+            return f"process {pid} ({comm})"
+    return None

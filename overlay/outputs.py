@@ -6,23 +6,30 @@ unless the user asked for it to be replaced.
 
 from __future__ import annotations
 
-import contextlib
+import errno
 import os
 import tempfile
 import warnings
-from pathlib import Path
 from concurrent.futures import ProcessPoolExecutor
-from typing import TYPE_CHECKING, Any, Callable, Iterator, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import TYPE_CHECKING, Any, Callable, Sequence
 
-from .errors import ExporterError, OutputConflictError, OverlayError
+from .errors import ExporterError, OutputConflictError, OutputWarning, OutputWriteError, OverlayError, UsageError
+from .staging import Staged
 
 if TYPE_CHECKING:
     from .exporters import Exporter
+    from .merge import MergeSummary
     from .pipeline import RunResult
+    from .site import Site
 
 
 def check_targets(paths: Sequence[Path], *, overwrite: bool) -> None:
     """Refuse (before anything is written) when a target exists and overwriting was not asked for."""
+    for p in paths:
+        if p.parent.exists() and not p.parent.is_dir():
+            raise OutputWriteError("the output folder is a file", source=p.parent)
     clash = [p for p in paths if p.exists()]
     if clash and not overwrite:
         raise OutputConflictError(
@@ -35,31 +42,43 @@ def check_targets(paths: Sequence[Path], *, overwrite: bool) -> None:
         raise OutputConflictError("a folder stands where an output file should go", source=dirs[0])
 
 
-@contextlib.contextmanager
-def staged(finals: Sequence[Path]) -> Iterator[dict[Path, Path]]:
-    """Temporary paths beside each final path; all are moved into place only if the block succeeds.
+def check_out_dir(out_dir: Path) -> None:
+    """The output folder must be a folder we can create and write in (checked before any work)."""
+    if out_dir.exists() and not out_dir.is_dir():
+        raise OutputWriteError("the output folder is a file", source=out_dir)
+    probe = out_dir
+    while not probe.exists():
+        probe = probe.parent
+    try:  # the first folder that exists must take a new entry (read-only mounts and /proc do not)
+        os.rmdir(tempfile.mkdtemp(prefix=".overlay-probe-", dir=probe))
+    except OSError as exc:
+        raise OutputWriteError(f"cannot create the output folder ({exc.strerror or exc} in {probe})",
+                               source=out_dir) from exc
 
-    So a run that fails in its third output leaves neither the first two
-    nor any temporary file behind.
-    """
-    temps: dict[Path, Path] = {}
-    try:
-        for final in finals:
-            final.parent.mkdir(parents=True, exist_ok=True)
-            fd, name = tempfile.mkstemp(prefix=f".{final.name}.", suffix=".part" + final.suffix, dir=final.parent)
-            os.close(fd)
-            os.unlink(name)  # writers such as GDAL want to create the file themselves
-            temps[final] = Path(name)
-        yield temps
-        for final, tmp in temps.items():
-            if not tmp.exists():
-                raise ExporterError("the exporter wrote nothing", source=final)
-        for final, tmp in temps.items():
-            os.replace(tmp, final)
-    finally:
-        for left in temps.values():
-            with contextlib.suppress(FileNotFoundError):
-                left.unlink()
+
+def run_inputs(site: "Site") -> list[Path]:
+    """Every file and folder a run reads: site file, bundles, base drawing, asset file (and its journals)."""
+    inputs = [site.path, *(e.bundle for e in site.scans)]
+    if site.dxf.base is not None:
+        inputs.append(site.dxf.base)
+    if site.elements is not None:
+        src = site.elements.source
+        inputs += [src, *(src.with_name(src.name + s) for s in ("-wal", "-shm", "-journal"))]
+    return inputs
+
+
+def check_not_inputs(outputs: Sequence[Path], inputs: Sequence[Path]) -> None:
+    """No output may be, or hold, or lie inside an input of the run (exit 5 naming both)."""
+    def real(p: Path) -> Path:
+        return p.parent.resolve() / p.name
+
+    ins = [(i, real(i)) for i in inputs]
+    for o in outputs:
+        ro = real(o)
+        for i, ri in ins:
+            if ro == ri or ri.is_relative_to(ro) or (ri.is_dir() and ro.is_relative_to(ri)):
+                raise OutputConflictError(f"output {o} would overwrite or sit inside the run's input {i}; choose "
+                                          "another --out folder or [outputs] basename", source=o)
 
 
 def output_paths(out_dir: Path, basename: str, exporters: dict[str, "Exporter"], formats: Sequence[str]) -> dict[str, Path]:
@@ -171,15 +190,27 @@ def print_pdf(html_path: Path, pdf_path: Path, browser: str) -> None:
         raise ExporterError(f"PDF printing failed ({done.stderr.strip()[-300:]})", source=pdf_path)
 
 
+@dataclass(frozen=True)
+class Written:
+    """What a run wrote: the output paths by kind, and the merge into the owner's file (if any)."""
+
+    paths: dict[str, Path]
+    merge: "MergeSummary | None" = None
+
+
 def write_outputs(result: "RunResult", out_dir: Path, *, overwrite: bool = False, pictures: bool = True,
-                  pdf: bool | None = None, jobs: int = 1,
-                  progress: Callable[[int], None] | None = None) -> dict[str, Path]:
-    """Write every requested format, the reports and (by default) the pictures; all move into place
-    together or none does.  ``pdf``: True prints the HTML report to PDF (Chromium needed), None
-    does so when Chromium is installed (a failure is then only a warning), False never.
-    ``jobs``: processes for the pictures; ``progress`` is called once per picture drawn."""
-    from .report import run_report
-    from .report_html import site_report
+                  pdf: bool | None = None, jobs: int = 1, progress: Callable[[int], None] | None = None,
+                  merge: bool = False, replace_findings: bool = False) -> Written:
+    """Write every requested format, the reports and (by default) the pictures, and (``merge``) the
+    findings into the owner's asset GeoPackage — all of it, or nothing.
+
+    Every check comes first (existing outputs, outputs that are inputs, the merge's lock and
+    layers); the files are written to temporary paths, the merge is prepared inside the owner's
+    transaction, the files move into place and only then is the merge committed; a failure at
+    any step puts back what was there.  ``pdf``: True prints the HTML report to PDF (Chromium
+    needed), None does so when Chromium is installed (a failure is then only a warning), False
+    never.  ``jobs``: processes for the pictures; ``progress`` is called once per picture drawn."""
+    from .merge import prepare_merge
 
     exporters = select_exporters(result.site.formats, result.site.path)
     paths = output_paths(out_dir, result.site.basename, exporters, result.site.formats)
@@ -190,44 +221,80 @@ def write_outputs(result: "RunResult", out_dir: Path, *, overwrite: bool = False
         pics = {n: folder / f"{n}.png" for n in picture_names(result, "dxf" in exporters)}
     browser = find_pdf_printer() if pdf is not False and pictures else None
     if pdf and browser is None:
-        from .errors import UsageError
-
         raise UsageError("--pdf needs a headless Chromium (Debian package chromium); the HTML report prints from any browser")
-    pdf_path = out_dir / f"{result.site.basename}-report.pdf" if browser else None
-    check_targets(list(paths.values()) + list(pics.values()) + ([pdf_path] if pdf_path else []), overwrite=overwrite)
+    if browser:
+        paths["pdf"] = out_dir / f"{result.site.basename}-report.pdf"
+    finals = list(paths.values()) + list(pics.values())
+    check_targets(finals, overwrite=overwrite)
+    check_not_inputs(finals + ([folder] if pictures else []), run_inputs(result.site))
+    staged = Staged(finals)
+    opened = None
     try:
-        with staged(list(paths.values()) + list(pics.values())) as temps:
-            for fmt, exporter in exporters.items():
-                try:
-                    exporter.write(result, temps[paths[fmt]])
-                except OverlayError:
-                    raise
-                except Exception as exc:
-                    raise ExporterError(f"exporter {fmt!r} failed: {type(exc).__name__}: {exc}", source=paths[fmt]) from exc
-            temps[paths["report"]].write_text(run_report(result), encoding="utf-8")
-            if pictures:
-                images = draw_pictures(result, temps[paths["dxf"]] if "dxf" in exporters else None, jobs=jobs,
-                                       progress=progress)
-                for name, png in images.items():
-                    temps[pics[name]].write_bytes(png)
-                temps[paths["html"]].write_text(site_report(result, images), encoding="utf-8")
+        _write_staged(result, exporters, paths, pics, staged, jobs, progress, pdf, browser)
+        if merge and result.site.merge is not None:
+            opened = prepare_merge(result, replace_findings=replace_findings)
+        staged.publish()
+        summary = opened.commit() if opened is not None else None
     except BaseException:
-        with contextlib.suppress(OSError):
-            folder.rmdir()  # only if we left it empty
+        if opened is not None:
+            opened.rollback()
+        staged.undo()
         raise
+    staged.finish()
     if pictures:
         paths["pictures"] = folder
-    if browser and pdf_path is not None:
-        with staged([pdf_path]) as temps:
-            try:
-                print_pdf(paths["html"], temps[pdf_path], browser)
-            except ExporterError as exc:
-                if pdf:
-                    raise
-                warnings.warn(f"{exc.line()}; the HTML report is written, no PDF", stacklevel=2)
-                temps[pdf_path].write_bytes(b"")  # keep staging happy, removed below
-        if pdf_path.exists() and pdf_path.stat().st_size == 0:
-            pdf_path.unlink()
-        else:
-            paths["pdf"] = pdf_path
-    return paths
+    return Written({k: v for k, v in paths.items() if k != "pdf" or v in staged.temps}, summary)
+
+
+def _write_staged(result: "RunResult", exporters: dict[str, "Exporter"], paths: dict[str, Path],
+                  pics: dict[str, Path], staged: Staged, jobs: int, progress: Callable[[int], None] | None,
+                  pdf: bool | None, browser: str | None) -> None:
+    """Every output into its temporary file."""
+    from .report import run_report
+    from .report_html import site_report
+
+    for fmt, exporter in exporters.items():
+        try:
+            exporter.write(result, staged[paths[fmt]])
+        except OverlayError:
+            raise
+        except OSError as exc:
+            raise OutputWriteError(f"exporter {fmt!r} could not write ({exc.strerror or exc})", source=paths[fmt]) from exc
+        except Exception as exc:
+            if _out_of_room(exc, paths[fmt].parent):
+                raise OutputWriteError(f"exporter {fmt!r} could not write: no space left on device",
+                                       source=paths[fmt]) from exc
+            raise ExporterError(f"exporter {fmt!r} failed: {type(exc).__name__}: {exc}", source=paths[fmt]) from exc
+    _write_text(staged[paths["report"]], run_report(result))
+    if not pics:
+        return
+    images = draw_pictures(result, staged[paths["dxf"]] if "dxf" in exporters else None, jobs=jobs, progress=progress)
+    for name, png in images.items():
+        _write_bytes(staged[pics[name]], png)
+    _write_text(staged[paths["html"]], site_report(result, images))
+    if browser is not None:
+        try:
+            print_pdf(staged[paths["html"]], staged[paths["pdf"]], browser)
+        except ExporterError as exc:
+            if pdf:
+                raise
+            warnings.warn(f"{exc.line()}; the HTML report is written, no PDF", OutputWarning, stacklevel=3)
+            staged.drop(paths["pdf"])
+
+
+def _out_of_room(exc: Exception, folder: Path) -> bool:
+    """A writer library (GDAL, ezdxf) that failed because the disk is full says so only in words."""
+    text = str(exc).lower()
+    return "no space left" in text or getattr(exc, "errno", None) == errno.ENOSPC or \
+        (folder.exists() and os.statvfs(folder).f_bavail == 0)
+
+
+def _write_text(path: Path, text: str) -> None:
+    _write_bytes(path, text.encode("utf-8"))
+
+
+def _write_bytes(path: Path, data: bytes) -> None:
+    try:
+        path.write_bytes(data)
+    except OSError as exc:
+        raise OutputWriteError(f"cannot write ({exc.strerror or exc})", source=path) from exc

@@ -175,11 +175,11 @@ def test_fit_reports_are_in_the_run_outputs(demo: dict, tmp_path) -> None:
 
     from overlay.outputs import write_outputs
 
-    paths = write_outputs(demo["result"], tmp_path, pictures=False)
+    paths = write_outputs(demo["result"], tmp_path, pictures=False).paths
     report = paths["report"].read_text()
     assert "projective on mirror-angle tangents" in report and "leave-one-out" in report
     runs = pyogrio.read_dataframe(paths["gpkg"], layer="runs")
     assert set(runs["fit_model"]) == {"similarity", "projective"}
-    assert {"fit_params", "fit_rms", "fit_max", "fit_tolerance", "fit_passed", "fit_override"} <= set(runs.columns)
+    assert {"fit_params", "fit_rms", "fit_max", "fit_tolerance_m", "fit_passed", "fit_override"} <= set(runs.columns)
     targets = pyogrio.read_dataframe(paths["gpkg"], layer="targets")
     assert targets["leave_one_out_m"].notna().all() and (targets["residual_m"] < 0.01).all()

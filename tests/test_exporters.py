@@ -22,7 +22,7 @@ from overlay.outputs import write_outputs
 @pytest.fixture(scope="module")
 def written(demo: dict, tmp_path_factory: pytest.TempPathFactory) -> dict:
     out = tmp_path_factory.mktemp("out")
-    paths = write_outputs(demo["result"], out, pictures=False)
+    paths = write_outputs(demo["result"], out, pictures=False).paths
     return {"paths": paths, "result": demo["result"]}
 
 

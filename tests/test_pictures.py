@@ -35,7 +35,7 @@ def _pixels(png: bytes) -> np.ndarray:
 @pytest.fixture(scope="module")
 def written(demo: dict, tmp_path_factory: pytest.TempPathFactory) -> dict:
     out = tmp_path_factory.mktemp("pics")
-    return {"paths": write_outputs(demo["result"], out), "result": demo["result"]}
+    return {"paths": write_outputs(demo["result"], out).paths, "result": demo["result"]}
 
 
 def test_every_picture_is_written_with_its_size(written: dict) -> None:
@@ -165,7 +165,7 @@ def test_report_loads_in_headless_chromium(written: dict, tmp_path: Path) -> Non
 
 
 def test_no_pictures_writes_none(demo: dict, tmp_path: Path) -> None:
-    paths = write_outputs(demo["result"], tmp_path, pictures=False)
+    paths = write_outputs(demo["result"], tmp_path, pictures=False).paths
     assert "html" not in paths and not (tmp_path / f"{demo['result'].site.basename}-pictures").exists()
 
 
@@ -175,7 +175,7 @@ def test_pdf_report_where_chromium_is_installed(demo: dict, tmp_path: Path, writ
     if find_pdf_printer() is None:
         pytest.skip("Chromium not installed")
     assert written["paths"]["pdf"].read_bytes()[:5] == b"%PDF-"  # by default where a printer exists
-    paths = write_outputs(demo["result"], tmp_path, pdf=True)
+    paths = write_outputs(demo["result"], tmp_path, pdf=True).paths
     data = paths["pdf"].read_bytes()
     assert data[:5] == b"%PDF-" and len(data) > 50_000
 

@@ -7,8 +7,7 @@ import sys
 from pathlib import Path
 from tqdm import tqdm
 
-from ..merge import merge_findings
-from ..outputs import picture_names, write_outputs
+from ..outputs import check_out_dir, picture_names, write_outputs
 from ..campaign import run_campaign, summary
 from ..report import run_report
 from ..site import Site
@@ -33,6 +32,8 @@ def add_output_options(p: argparse.ArgumentParser, default_out: str) -> None:
     p.add_argument("--strict", action="store_true", help="stop at the first scan that fails (default: report it, go on)")
     p.add_argument("--no-merge", action="store_true",
                    help="do not write findings into the owner's asset GeoPackage even if the site file says so")
+    p.add_argument("--replace-findings", action="store_true",
+                   help="let the merge remove more earlier findings of a scan than it adds (the zones really went)")
 
 
 def run_and_write(site: Site, out: Path, args: argparse.Namespace, *, overwrite: bool) -> int:
@@ -47,6 +48,7 @@ def run_and_write(site: Site, out: Path, args: argparse.Namespace, *, overwrite:
         scans.set_postfix_str(f"{scan_id} {how}")
         scans.update(1)
 
+    check_out_dir(out)
     cache = None if args.no_cache else (args.cache or out / ".overlay-cache")
     try:
         c = run_campaign(site, jobs=args.jobs, dask_address=args.dask, cache_dir=cache, strict=args.strict,
@@ -61,15 +63,16 @@ def run_and_write(site: Site, out: Path, args: argparse.Namespace, *, overwrite:
     n_pictures = len(picture_names(c.result, "dxf" in c.result.site.formats)) if not args.no_pictures else 0
     with tqdm(total=n_pictures, desc="pictures", unit="png", disable=True if hide or not n_pictures else None,
               file=sys.stderr) as drawn:
-        paths = write_outputs(c.result, out, overwrite=overwrite, pictures=not args.no_pictures, pdf=args.pdf,
-                              jobs=args.jobs, progress=drawn.update)
+        written = write_outputs(c.result, out, overwrite=overwrite, pictures=not args.no_pictures, pdf=args.pdf,
+                                jobs=args.jobs, progress=drawn.update, merge=not args.no_merge,
+                                replace_findings=args.replace_findings)
     if not args.quiet:
         print(run_report(c.result))
     print("written:")
-    for p in paths.values():
+    for p in written.paths.values():
         print(f"  {p}")
-    if site.merge is not None and not args.no_merge:
-        m = merge_findings(c.result)
+    m = written.merge
+    if m is not None:
         print(f"merged into {m.target} layer {m.layer}: {m.added} row(s) of this run"
               f" ({m.replaced} earlier row(s) of the same scans replaced, {m.kept} other row(s) kept)"
               + (f"; backup {m.backup}" if m.backup else ""))
