@@ -9,7 +9,9 @@ from __future__ import annotations
 
 import csv
 import datetime as dt
+import difflib
 import re
+import stat
 import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -24,6 +26,13 @@ SCAN_ID = re.compile(r"^[A-Za-z0-9._-]+$")
 VELOCITY_TO_MPS = {"m/s": 1.0, "mm/s": 1e-3}
 LENGTH_TO_M = {"m": 1.0, "mm": 1e-3}
 KNOWN_COLUMNS = {"id", "row", "col", "x", "y", "ax", "ay", "valid", "signal_level", "ver_db", "peak_hz"}
+MAX_POINTS_BYTES = 256 << 20  # points.csv of 256 MiB holds ~4 million points; anything larger is not one scan
+MAX_SAMPLES = 1 << 24  # samples per record (5.5 minutes at 51.2 kHz)
+MAX_SHOTS = 1024
+MAX_SURFACE_M = 1.0e6  # |x|, |y| of surface coordinates and targets, metres
+MAX_ANGLE_DEG = 89.0  # |ax|, |ay| of mirror angles: a beam at 90 degrees never meets the surface
+CELLS_PER_POINT = 64  # row/col may span at most this many grid cells per point (else it is not a grid)
+SURVEYED_YEARS = (1950, 2200)
 
 
 @dataclass(frozen=True)
@@ -131,7 +140,7 @@ def read_bundle(folder: str | Path) -> Scan:
         raise coords.fail("unit", 'applies to kind "surface" only; angles are always degrees')
 
     points_path = folder / "points.csv"
-    table = _read_points(points_path, kind)
+    table = _read_points(points_path, kind, unit_scale)
     n = len(table["id"])
 
     records_path, spectra_path, freqs_path = (folder / f for f in ("records.npy", "spectra.npy", "frequencies.npy"))
@@ -196,22 +205,35 @@ def read_bundle(folder: str | Path) -> Scan:
             raise band.fail("hz", f"upper edge {hi:g} Hz is above the Nyquist frequency {scan.sample_rate_hz / 2:g} Hz")
         if scan.frequencies is not None and (hi < scan.frequencies[0] or lo > scan.frequencies[-1]):
             raise band.fail("hz", "lies outside frequencies.npy")
-        band.warn_unknown(BundleWarning)
+        band.reject_unknown()
     elif scan.payload != "ver":
         raise doc.fail("band", "table with hz = [low, high] is required unless ver_db is given")
 
     scan.targets = _targets(doc, kind, unit_scale)
     for t in (scan_t, coords):
-        t.warn_unknown(BundleWarning)
+        t.reject_unknown()
     doc.seen.update({"geometry", "targets", "band"})
-    doc.warn_unknown(BundleWarning)
+    doc.reject_unknown()
     return scan
+
+
+def target_names(folder: Path) -> set[str]:
+    """The names of a bundle's control targets, read from its manifest alone ({} when unreadable:
+    the full reader then reports the problem)."""
+    try:
+        doc = load_toml(Path(folder) / "scan.toml", BundleError)
+    except BundleError:
+        return set()
+    raw = doc.get("targets", [])
+    return {t["name"] for t in raw if isinstance(t, dict) and isinstance(t.get("name"), str)} if isinstance(raw, list) else set()
 
 
 def _surveyed(scan_t: Fields) -> dt.datetime | None:
     value = scan_t.raw("surveyed")
     if value is None:
         return None
+    if isinstance(value, (dt.datetime, dt.date)) and not SURVEYED_YEARS[0] <= value.year <= SURVEYED_YEARS[1]:
+        raise scan_t.fail("surveyed", f"year {value.year} is outside {SURVEYED_YEARS[0]}..{SURVEYED_YEARS[1]}")
     if isinstance(value, dt.datetime):
         return value if value.tzinfo else value.replace(tzinfo=dt.timezone.utc)
     if isinstance(value, dt.date):
@@ -219,14 +241,18 @@ def _surveyed(scan_t: Fields) -> dt.datetime | None:
     raise scan_t.fail("surveyed", f"must be a TOML date or datetime, got {value!r}")
 
 
-def _read_points(path: Path, kind: str) -> dict[str, np.ndarray]:
-    if not path.is_file():
-        raise BundleError("file not found", source=path)
+def _read_points(path: Path, kind: str, unit_scale: float) -> dict[str, np.ndarray]:
+    _regular_file(path, MAX_POINTS_BYTES)
     try:
         text = path.read_text(encoding="utf-8-sig")
     except UnicodeDecodeError as exc:
         raise BundleError("not UTF-8 text", source=path) from exc
-    rows = list(csv.reader(text.splitlines()))
+    reader = csv.reader(text.splitlines())
+    try:
+        rows = list(reader)
+    except csv.Error as exc:
+        raise BundleError(f"not readable as CSV ({exc}; a stray quote?)", source=path,
+                          field=f"line {reader.line_num}") from exc
     if not rows:
         raise BundleError("empty file; a header row is required", source=path)
     header = [h.strip() for h in rows[0]]
@@ -242,7 +268,13 @@ def _read_points(path: Path, kind: str) -> dict[str, np.ndarray]:
     other = ("ax", "ay") if kind == "surface" else ("x", "y")
     unknown = [h for h in header if h not in KNOWN_COLUMNS or h in other]
     if unknown:
-        warnings.warn(f"{path}: ignoring unknown column(s) {', '.join(unknown)}", BundleWarning, stacklevel=3)
+        h = unknown[0]
+        if h in other:
+            why = f"belongs to coordinates kind {'angles' if kind == 'surface' else 'surface'}, this scan is {kind!r}"
+        else:
+            near = difflib.get_close_matches(h, sorted(KNOWN_COLUMNS - set(other)), n=1, cutoff=0.6)
+            why = f"unknown column{f'; did you mean {near[0]!r}?' if near else ''} (known: {', '.join(sorted(KNOWN_COLUMNS - set(other)))})"
+        raise BundleError(why, source=path, field=f"line 1, column {h}")
     body = [r for r in rows[1:] if any(c.strip() for c in r)]
     if not body:
         raise BundleError("no point rows after the header", source=path)
@@ -286,12 +318,23 @@ def _read_points(path: Path, kind: str) -> dict[str, np.ndarray]:
     if bad.any():
         ln = linenos[int(np.argmax(bad))]
         raise BundleError("coordinates must be finite", source=path, field=f"line {ln}, columns {xcol}/{ycol}")
+    limit, what = (MAX_ANGLE_DEG, "degrees") if kind == "angles" else (MAX_SURFACE_M / unit_scale, "coordinate units")
+    far = (np.abs(xy) > limit).any(axis=1)
+    if far.any():
+        ln = linenos[int(np.argmax(far))]
+        raise BundleError(f"coordinate beyond {limit:g} {what} (documented range)", source=path,
+                          field=f"line {ln}, columns {xcol}/{ycol}")
     table["xy"] = xy
     if "row" in header:
         row, col = numbers("row", integer=True).astype(np.int64), numbers("col", integer=True).astype(np.int64)
         if (row < 0).any() or (col < 0).any():
             ln = linenos[int(np.argmax((row < 0) | (col < 0)))]
             raise BundleError("grid indices must be >= 0", source=path, field=f"line {ln}, columns row/col")
+        cells = (int(row.max() - row.min()) + 1) * (int(col.max() - col.min()) + 1)
+        if cells > CELLS_PER_POINT * len(ids) + 4096:
+            ln = linenos[int(np.argmax(np.maximum(row - row.min(), col - col.min())))]
+            raise BundleError(f"row/col span {cells} grid cells for {len(ids)} points (at most {CELLS_PER_POINT} "
+                              "per point); the indices are not a grid", source=path, field=f"line {ln}, columns row/col")
         key = row * (col.max() + 1) + col
         uniq, first = np.unique(key, return_index=True)
         if len(uniq) != len(key):
@@ -320,11 +363,29 @@ def _read_points(path: Path, kind: str) -> dict[str, np.ndarray]:
     return table
 
 
+def _regular_file(path: Path, max_bytes: int | None = None) -> None:
+    """A regular file (not a FIFO or a device, which would block or never end), within its size limit."""
+    if not path.exists():
+        raise BundleError("file not found", source=path)
+    st = path.stat()
+    if not stat.S_ISREG(st.st_mode):
+        raise BundleError("not a regular file (a pipe or device cannot be read as scan data)", source=path)
+    if max_bytes is not None and st.st_size > max_bytes:
+        raise BundleError(f"is {st.st_size} bytes, more than the {max_bytes} bytes documented as the limit", source=path)
+
+
 def _load_npy(path: Path) -> np.ndarray:
+    """The array memory-mapped, after checking that the file is exactly as long as its header says."""
+    _regular_file(path)
     try:
-        return np.load(path, mmap_mode="r", allow_pickle=False)
-    except Exception as exc:  # numpy raises ValueError / OSError / EOFError for bad files
+        arr = np.load(path, mmap_mode="r", allow_pickle=False)
+    except Exception as exc:  # numpy raises ValueError / OSError / EOFError for bad (or truncated) files
         raise BundleError(f"not a readable .npy array ({exc})", source=path) from exc
+    size, need = path.stat().st_size, int(getattr(arr, "offset", 0)) + int(arr.nbytes)
+    if isinstance(arr, np.memmap) and size != need:
+        raise BundleError(f"is {size} bytes but its header {arr.shape} {arr.dtype} needs {need}; the file is longer "
+                          "than its array", source=path)
+    return arr
 
 
 def _check_float(arr: np.ndarray, path: Path) -> None:
@@ -341,6 +402,9 @@ def _read_records(scan: Scan, doc: Fields, path: Path, n: int) -> None:
         raise BundleError(f"has {rec.shape[0]} points on its first axis, points.csv has {n}", source=path)
     if rec.shape[-1] < 8 or (rec.ndim == 3 and rec.shape[1] < 1):
         raise BundleError(f"too few samples per record: shape {rec.shape}", source=path)
+    if rec.shape[-1] > MAX_SAMPLES or (rec.ndim == 3 and rec.shape[1] > MAX_SHOTS):
+        raise BundleError(f"shape {rec.shape} is beyond the documented limits ({MAX_SAMPLES} samples, {MAX_SHOTS} shots "
+                          "per point); a tone-burst record is far shorter", source=path)
     t = doc.table_of("records")
     if t is None:
         raise doc.fail("records", "table is required when records.npy is present")
@@ -353,7 +417,7 @@ def _read_records(scan: Scan, doc: Fields, path: Path, n: int) -> None:
         if not 0 <= gate[0] < gate[1]:
             raise t.fail("gate_s", f"must be [start, end] with 0 <= start < end, got [{gate[0]:g}, {gate[1]:g}]")
         scan.gate_s = gate
-    t.warn_unknown(BundleWarning)
+    t.reject_unknown()
 
 
 def _read_spectra(scan: Scan, doc: Fields, path: Path, freqs_path: Path, n: int) -> None:
@@ -375,7 +439,7 @@ def _read_spectra(scan: Scan, doc: Fields, path: Path, freqs_path: Path, n: int)
         raise doc.fail("spectra", "table is required when spectra.npy is present")
     scale = VELOCITY_TO_MPS[t.choice("velocity_unit", tuple(VELOCITY_TO_MPS))]
     scan.spectra, scan.frequencies, scan.velocity_scale = spec, freqs, scale
-    t.warn_unknown(BundleWarning)
+    t.reject_unknown()
 
 
 def _geometry(doc: Fields) -> Geometry:
@@ -389,7 +453,7 @@ def _geometry(doc: Fields) -> Geometry:
     )
     if (g.number("air_temperature_c") or 0.0) > 60:
         raise g.fail("air_temperature_c", "must lie in -60..60 °C")
-    g.warn_unknown(BundleWarning)
+    g.reject_unknown()
     return geo
 
 
@@ -411,7 +475,7 @@ def _targets(doc: Fields, kind: str, unit_scale: float) -> list[Target]:
         if kind == "surface":
             scanner = (scanner[0] * unit_scale, scanner[1] * unit_scale)
         out.append(Target(name=name, scanner=scanner, drawing=t.pair("drawing")))
-        t.warn_unknown(BundleWarning)
+        t.reject_unknown()
     return out
 
 

@@ -20,6 +20,7 @@ from .errors import CRSCheckError, RegistrationWarning
 from .transforms import Similarity
 
 UNIT_TO_M = {"m": 1.0, "mm": 0.001}
+AREA_MARGIN_DEG = 3.0  # a site this far outside its CRS's area of use is a wrong CRS or placement, not an edge case
 
 
 def from_placement(origin: tuple[float, float], bearing_deg: float, scale: float, drawing_unit: str) -> Similarity:
@@ -53,9 +54,22 @@ def check_map_crs(crs: pyproj.CRS, site_xy: np.ndarray, *, source: str | None = 
     if area is None or len(site_xy) == 0:
         return
     to_geo = pyproj.Transformer.from_crs(crs, crs.geodetic_crs, always_xy=True)
-    lon, lat = to_geo.transform(site_xy[:, 0], site_xy[:, 1])
-    inside = (lon >= area.west) & (lon <= area.east) & (lat >= area.south) & (lat <= area.north)
-    if not np.all(inside):
+    with np.errstate(all="ignore"):
+        lon, lat = to_geo.transform(site_xy[:, 0], site_xy[:, 1])
+    if not (np.all(np.isfinite(lon)) and np.all(np.isfinite(lat))):
+        raise CRSCheckError(f"the site's map coordinates (around {np.mean(site_xy[:, 0]):.6g}, {np.mean(site_xy[:, 1]):.6g}) "
+                            f"are not a place on the earth in {label}; check [map] origin or monuments",
+                            source=source, field="map.origin")
+
+    def within(m: float) -> np.ndarray:
+        return (lon >= area.west - m) & (lon <= area.east + m) & (lat >= area.south - m) & (lat <= area.north + m)
+
+    if not np.all(within(AREA_MARGIN_DEG)):
+        raise CRSCheckError(
+            f"site at lon {np.mean(lon):.5f}, lat {np.mean(lat):.5f} lies more than {AREA_MARGIN_DEG:g} degrees outside "
+            f"the area of use of {label} ({area.name}: {area.west:g}..{area.east:g} E, {area.south:g}..{area.north:g} N); "
+            "the CRS or the placement is wrong", source=source, field="map")
+    if not np.all(within(0.0)):
         warnings.warn(
             f"{source + ': ' if source else ''}site at lon {np.mean(lon):.5f}, lat {np.mean(lat):.5f} lies outside "
             f"the area of use of {label} ({area.name}: {area.west:g}..{area.east:g} E, {area.south:g}..{area.north:g} N)",

@@ -20,9 +20,9 @@ from . import __version__
 from .bundle import Scan, read_bundle
 from .cautions import CAUTIONS
 from .contour import level_polygons
-from .elements import read_elements, split_by_assets
+from .elements import AssetTable, element_layer, read_asset_table, split_by_assets
 from .energy import Reference, reference_energy, ver_db
-from .errors import BundleError, SignalError, SiteFileError
+from .errors import BundleError, RegistrationError, SignalError, SiteFileError
 from .fits import Fit, check_fit, fit_points
 from .frames import UNIT_TO_M, check_map_crs, from_placement, site_scale_factor, to_crs
 from .stations import Alignment
@@ -32,7 +32,7 @@ from .gate import Gate, make_gate, window_from_geometry
 from .grid import Grid, ScatterGrid, grid_from_indices, infer_grid
 from .mosaic import mosaic_zones
 from .registration import TargetResult, register
-from .site import ScanEntry, Site
+from .site import SCALE_RANGE, ScanEntry, Site
 from .spectra import band_psd_rows, given_psd_rows, given_spectra, parabolic_peak, records_spectra
 from .zones import (
     Zone,
@@ -96,6 +96,7 @@ class RunResult:
     warnings: list[str] = field(default_factory=list)
     element_areas: dict[str, float] = field(default_factory=dict)
     asset_pieces: list[dict] = field(default_factory=list)  # zones split by the owner's assets (map CRS)
+    assets: AssetTable | None = None  # the owner's asset layer as read (the merge checks it is unchanged)
     map_scale: tuple[float, float] | None = None  # (point scale k, areal scale) of the map CRS at the site
     mosaic: list[Zone] = field(default_factory=list)
 
@@ -121,7 +122,7 @@ class RunResult:
             "min_area_m2": s.min_area_m2,
             "concrete": f"E {s.concrete.modulus_pa / 1e9:.2f} GPa, rho {s.concrete.density:g}, nu {s.concrete.poisson:g}",
             "repair": f"margin {s.margin_m:g} m, {s.footprint} footprint, basis {s.basis}",
-            "tolerance": s.tolerance,
+            "tolerance_m": s.tolerance_m,
             "accept_misfit": s.accept_misfit,
             "crs": self.crs.to_string() if self.crs else "",
         }
@@ -442,6 +443,11 @@ def map_placement(site: Site, site_xy: np.ndarray) -> tuple[Similarity | None, p
         check_fit(fit, m.tolerance_m, "m", accept=site.accept_misfit, source=src)
         assert isinstance(fit.transform, Similarity)
         t = fit.transform
+        k = t.scale / UNIT_TO_M[site.drawing_unit]
+        if not SCALE_RANGE[0] <= k <= SCALE_RANGE[1]:
+            raise RegistrationError(f"the monuments give {k:.6g} map metres per drawing metre (drawing_unit "
+                                    f"{site.drawing_unit!r}); expected about 1 — check the drawing unit and the monuments",
+                                    source=src, field="map.monuments")
     check_map_crs(crs, t.apply(site_xy), source=src)
     return t, crs, fit
 
@@ -466,13 +472,16 @@ def finish_site(site: Site, results: list[ScanResult], started: str, caught: lis
         zones = mosaic_zones([z for r in results for z in r.zones], site, UNIT_TO_M[site.drawing_unit])
         if site.alignment is not None:
             locate_zones(zones, site, to_map)
-        layer = read_elements(site.elements, crs, to_map, UNIT_TO_M[site.drawing_unit]) if site.elements else None
+        assets, layer = None, None
+        if site.elements is not None:
+            assets = read_asset_table(site.elements)
+            layer = element_layer(assets, crs, to_map, UNIT_TO_M[site.drawing_unit], str(site.elements.source))
     for w in seen:
         caught.append(str(w.message))
         warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
     pieces = split_by_assets(zones, site.basis, to_map, layer) if layer else []
     return RunResult(site, results, to_map, crs, map_fit, started, warnings=caught, mosaic=zones,
-                     element_areas=layer.areas_m2 if layer else {}, asset_pieces=pieces, map_scale=scale)
+                     element_areas=layer.areas_m2 if layer else {}, asset_pieces=pieces, map_scale=scale, assets=assets)
 
 
 def now_utc() -> str:

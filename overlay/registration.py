@@ -116,7 +116,7 @@ def _control(scan: Scan, site: Site, src: str) -> tuple[list[str], list[tuple[fl
             continue
         if t.name in site.control_points and t.drawing is not None:
             gap = float(np.hypot(*np.subtract(site.control_points[t.name], t.drawing)))
-            if gap > site.tolerance:
+            if gap > site.tolerance_m / UNIT_TO_M[site.drawing_unit]:
                 warnings.warn(f"{src}: target {t.name}: site file and bundle differ by {gap:.4f}; using the site file",
                               BundleWarning, stacklevel=3)
         names.append(t.name)
@@ -146,16 +146,49 @@ def register(scan: Scan, entry: ScanEntry, site: Site) -> Registration:
         tilt = entry.tilt_deg or (0.0, 0.0)
         working = lambda xy: pinhole_to_surface(xy, standoff, tilt)[0]  # noqa: E731
         describe = f"{model} after a pinhole projection (standoff {standoff:g} m, tilt {tilt[0]:g}/{tilt[1]:g} deg)"
+    at = working(np.array(seen, dtype=np.float64).reshape(-1, 2))
     try:
-        fit = fit_points(model, working(np.array(seen, dtype=np.float64).reshape(-1, 2)), np.array(drawing).reshape(-1, 2),
-                         names)
+        fit = fit_points(model, at, np.array(drawing).reshape(-1, 2), names)
     except RegistrationError as exc:
         raise RegistrationError(exc.problem, source=src, field="targets") from exc
-    passed = check_fit(fit, site.tolerance, site.drawing_unit, accept=site.accept_misfit, source=src)
+    check_scale(fit, frame, scan, u, at, src)
+    passed = check_fit(fit, site.tolerance_m / u, site.drawing_unit, accept=site.accept_misfit, source=src)
     targets = [TargetResult(n, (float(s[0]), float(s[1])), (float(d[0]), float(d[1])), (float(r[0]), float(r[1])), float(lo))
                for n, s, d, r, lo in zip(names, seen, drawing, fit.residuals.tolist(), fit.loo)]
     cos, how = _incidence(scan, entry, frame, fit, working, u)
     return Registration(frame, working, fit, passed, targets, cos, how, describe)
+
+
+SCALE_SLACK = {"surface": 1.1, "pinhole": 1.1, "tangent": 5.0}  # allowed factor between fitted and declared scale
+
+
+def check_scale(fit: Fit, frame: str, scan: Scan, drawing_unit_m: float, at: np.ndarray, source: str) -> None:
+    """The fit's scale must match the declared units: a metre on the surface is 1/u drawing units.
+
+    A drawing in millimetres declared as metres (or a bundle in mm declared as m) still fits
+    perfectly — at a scale of 1000 — and would multiply every area by a million.  Angle scans
+    on tangents scale with the standoff (checked loosely, when it is known).
+    """
+    per_m = fit.transform.local_scale(at) * drawing_unit_m  # drawing metres per working unit (m or tangent)
+    expected = 1.0
+    if frame == "tangent":
+        if scan.geometry.head_distance_m is None:
+            return
+        expected = scan.geometry.head_distance_m
+    ratio = per_m / expected
+    slack = SCALE_SLACK[frame]
+    if 1 / slack <= ratio <= slack:
+        return
+    unit = "m" if drawing_unit_m == 1.0 else "mm"
+    if 300 < ratio < 3000:
+        hint = "is the drawing in mm?" if unit == "m" else "are the scan's coordinates in mm ([coordinates] unit)?"
+    elif 1 / 3000 < ratio < 1 / 300:
+        hint = "is the drawing in m?" if unit == "mm" else "are the scan's coordinates in m ([coordinates] unit)?"
+    else:
+        hint = "check the targets' drawing coordinates and the units"
+    raise RegistrationError(f"{fit.model} fit scales a metre of the surface to {per_m / drawing_unit_m:.6g} {unit} of "
+                            f"the drawing, {ratio:.4g}x what the declared units say (drawing_unit {unit!r}): {hint}",
+                            source=source, field="targets")
 
 
 def _incidence(scan: Scan, entry: ScanEntry, frame: str, fit: Fit, working: Callable[[np.ndarray], np.ndarray],

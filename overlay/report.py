@@ -59,7 +59,7 @@ def run_report(result: "RunResult") -> str:
         if reasons:
             out.append("  invalid points: " + ", ".join(f"{k} {v}" for k, v in sorted(reasons.items())))
         verdict = "passed" if s.fit_passed else "MISFIT ACCEPTED BY OVERRIDE"
-        out.append(f"  scanner -> drawing: {s.fit_describe}, tolerance {site.tolerance:g} {unit}, {verdict}:")
+        out.append(f"  scanner -> drawing: {s.fit_describe}, tolerance {site.tolerance_m * 1000:g} mm, {verdict}:")
         out += ["    " + line for line in s.fit.report(unit)]
     out += ["", "zones (area: class contour; outline: estimated defect outline):"]
     if not result.zones:

@@ -86,7 +86,7 @@ def site_report(result: "RunResult", images: dict[str, bytes]) -> str:
                   + (f"gate {esc(s.gate.describe())}; " if s.gate else "")
                   + (f"reference {esc(s.reference.describe())}; " if s.reference else "")
                   + f"incidence correction {esc(s.incidence)}.</p>",
-                  f"<pre>{esc(s.fit_describe)}, tolerance {site.tolerance:g} {esc(unit)}, "
+                  f"<pre>{esc(s.fit_describe)}, tolerance {site.tolerance_m * 1000:g} mm, "
                   f"{'passed' if s.fit_passed else 'MISFIT ACCEPTED BY OVERRIDE'}\n"
                   + esc("\n".join(s.fit.report(unit))) + "</pre>"]
         if f"scan-{s.scan_id}" in images:

@@ -5,15 +5,19 @@ See docs/site-file.md for every field.  Paths in the file are relative to it.
 
 from __future__ import annotations
 
+import difflib
 import glob
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+from .bundle import target_names
+from .elements import is_geopackage_file
 from .energy import DEFAULT_PERCENTILE, REFERENCES
+from .merge import KEEP_BACKUPS, check_layer_name
 from .plate import aci318_modulus_pa
 from .zones import Concrete
-from .errors import OverlayWarning, SiteFileError
+from .errors import SiteFileError
 from .frames import UNIT_TO_M
 from .tomlio import Fields, load_toml
 
@@ -24,6 +28,8 @@ DEFAULT_FORMATS = ("dxf", "gpkg", "quantities-csv")
 # UFGS 03 93 10 asks at least 25 mm for the saw cut
 REPAIR_MARGIN_M = 0.15
 MODEL_CHOICES = ("auto", "similarity", "affine", "projective")
+TOLERANCE_M = 0.02  # worst control-target residual allowed: 20 mm on the structure, whatever the drawing unit
+SCALE_RANGE = (0.9, 1.1)  # a declared map scale outside this is a unit mistake, not a projection's scale factor
 
 
 @dataclass(frozen=True)
@@ -83,6 +89,7 @@ class MergeSpec:
     findings_layer: str = "acoustic_findings"
     method: str = "acoustic non-contact scan, vibration energy ratio"
     backup: bool = True
+    keep_backups: int = KEEP_BACKUPS  # besides the oldest (the owner's original), the newest N backups
 
 
 @dataclass(frozen=True)
@@ -117,7 +124,7 @@ class Site:
     classes: list[ZoneClass]
     control_points: dict[str, tuple[float, float]] = field(default_factory=dict)
     map: MapFrame | None = None
-    tolerance: float = 0.02
+    tolerance_m: float = TOLERANCE_M
     accept_misfit: bool = False
     model: str = "auto"
     reference: str = "percentile"
@@ -156,7 +163,7 @@ def read_site(path: str | Path) -> Site:
     unit = s.choice("drawing_unit", tuple(UNIT_TO_M), default="m")
 
     reg = _table(doc, "registration")
-    tolerance = reg.number("tolerance", 0.02, positive=True) or 0.02
+    tolerance = reg.number("tolerance_m", TOLERANCE_M, positive=True) or TOLERANCE_M
     accept = bool(_bool(reg, "accept_misfit", False))
     model = reg.choice("model", MODEL_CHOICES, default="auto")
 
@@ -186,8 +193,16 @@ def read_site(path: str | Path) -> Site:
     alignment = _alignment(doc)
     dxf = _dxf(doc, path)
     merge = _merge(doc)
-    if merge is not None and elements is None:
-        raise doc.fail("merge", "needs [elements] naming the owner's asset GeoPackage and layer")
+    map_frame = _map(doc)
+    if merge is not None:
+        if elements is None:
+            raise doc.fail("merge", "needs [elements] naming the owner's asset GeoPackage and layer")
+        if map_frame is None:
+            raise doc.fail("merge", "needs a [map] frame: findings go into the owner's GIS in its CRS")
+        if not is_geopackage_file(elements.source):
+            raise doc.fail("merge", f"the [elements] source {elements.source.name} is not a GeoPackage; "
+                           "findings are merged into GeoPackages only")
+        check_layer_name(merge.findings_layer, elements.layer, source=str(path))
 
     cps: dict[str, tuple[float, float]] = {}
     cp = doc.table_of("control_points")
@@ -198,7 +213,6 @@ def read_site(path: str | Path) -> Site:
             cps[key] = value
 
     scans = _scans(doc, path)
-    map_frame = _map(doc)
 
     out = _table(doc, "outputs")
     basename = out.string("basename", "overlay") or "overlay"
@@ -212,8 +226,10 @@ def read_site(path: str | Path) -> Site:
         missing = [str(e.bundle) for e in scans if e.healthy_region is None]
         if missing:
             raise en.fail("reference", f"'region' needs healthy_region on every scan; missing for {', '.join(missing)}")
-    for t in (doc, s, reg, en, qt, zt, rp, out):
-        t.warn_unknown(OverlayWarning)
+    reg.reject_unknown({"tolerance": "tolerance_m, in metres on the structure (it was in drawing units)"})
+    for t in (doc, s, en, qt, zt, rp, out):
+        t.reject_unknown()
+    _check_control_points(cps, scans, path)
     return Site(
         path=path,
         name=name,
@@ -223,7 +239,7 @@ def read_site(path: str | Path) -> Site:
         classes=classes,
         control_points=cps,
         map=map_frame,
-        tolerance=tolerance,
+        tolerance_m=tolerance,
         accept_misfit=accept,
         model=model,
         reference=reference,
@@ -274,7 +290,7 @@ def _classes(zt: Fields) -> list[ZoneClass]:
         if not name.replace("-", "").replace("_", "").isalnum():
             raise c.fail("name", f"must be letters, digits, - or _, got {name!r}")
         out.append(ZoneClass(name, c.number("threshold_db", required=True) or 0.0))
-        c.warn_unknown(OverlayWarning)
+        c.reject_unknown()
     names = [c.name for c in out]
     if len(set(names)) != len(names):
         raise zt.fail("classes", f"class names must be unique, got {names}")
@@ -308,7 +324,7 @@ def _scans(doc: Fields, path: Path) -> list[ScanEntry]:
             out.extend(ScanEntry(p, **extra) for p in found)
         else:
             out.append(ScanEntry(full, **extra))
-        t.warn_unknown(OverlayWarning)
+        t.reject_unknown()
     return out
 
 
@@ -326,7 +342,7 @@ def _concrete(doc: Fields) -> Concrete:
     poisson = c.number("poisson", 0.2, minimum=0.0) or 0.0
     if poisson >= 0.5:
         raise c.fail("poisson", f"must lie in 0..0.5, got {poisson:g}")
-    c.warn_unknown(OverlayWarning)
+    c.reject_unknown()
     return Concrete(modulus, density, poisson)
 
 
@@ -339,7 +355,7 @@ def _elements(doc: Fields, path: Path) -> Elements | None:
     if not full.is_file():
         raise e.fail("source", f"file not found: {full}")
     out = Elements(full, e.string("layer"), e.string("id_field", "asset_id") or "asset_id")
-    e.warn_unknown(OverlayWarning)
+    e.reject_unknown()
     return out
 
 
@@ -374,7 +390,7 @@ def _dxf(doc: Fields, path: Path) -> DxfStyle:
         fill_transparency=transparency,
         reuse_layers=_bool(d, "reuse_layers", False),
     )
-    d.warn_unknown(OverlayWarning)
+    d.reject_unknown()
     return style
 
 
@@ -385,8 +401,11 @@ def _merge(doc: Fields) -> MergeSpec | None:
     layer = m.string("findings_layer", "acoustic_findings") or "acoustic_findings"
     if not layer.replace("_", "").isalnum():
         raise m.fail("findings_layer", f"must be letters, digits or _, got {layer!r}")
-    spec = MergeSpec(layer, m.string("method", MergeSpec.method) or MergeSpec.method, _bool(m, "backup", True))
-    m.warn_unknown(OverlayWarning)
+    keep = m.raw("keep_backups", KEEP_BACKUPS)
+    if isinstance(keep, bool) or not isinstance(keep, int) or keep < 0:
+        raise m.fail("keep_backups", f"must be a whole number >= 0, got {keep!r}")
+    spec = MergeSpec(layer, m.string("method", MergeSpec.method) or MergeSpec.method, _bool(m, "backup", True), keep)
+    m.reject_unknown()
     return spec
 
 
@@ -397,7 +416,7 @@ def _alignment(doc: Fields) -> AlignmentSpec | None:
     pts = _pairs(a, "points", 2, "a polyline")
     assert pts is not None
     spec = AlignmentSpec(pts, a.choice("frame", ("drawing", "map"), default="drawing"), a.number("start_station_m", 0.0) or 0.0)
-    a.warn_unknown(OverlayWarning)
+    a.reject_unknown()
     return spec
 
 
@@ -431,7 +450,12 @@ def _map(doc: Fields) -> MapFrame | None:
         raise m.fail("crs", f"must be an EPSG code or text, got {crs!r}")
     origin = m.pair("origin")
     bearing = m.number("bearing_deg", 90.0) or 0.0
+    if not -360.0 <= bearing <= 360.0:
+        raise m.fail("bearing_deg", f"must lie in -360..360 degrees, got {bearing:g}")
     scale = m.number("scale", 1.0, positive=True) or 1.0
+    if not SCALE_RANGE[0] <= scale <= SCALE_RANGE[1]:
+        raise m.fail("scale", f"must lie in {SCALE_RANGE[0]:g}..{SCALE_RANGE[1]:g} (map metres per drawing metre; "
+                     f"drawing_unit converts mm), got {scale:g}")
     tol = m.number("tolerance_m", 0.05, positive=True) or 0.05
     monuments: list[Monument] = []
     for i, item in enumerate(m.raw("monuments", []) or []):
@@ -439,10 +463,25 @@ def _map(doc: Fields) -> MapFrame | None:
         d, mp = t.pair("drawing", required=True), t.pair("map", required=True)
         assert d is not None and mp is not None
         monuments.append(Monument(t.string("name", f"M{i + 1}") or "", d, mp))
-        t.warn_unknown(OverlayWarning)
+        t.reject_unknown()
     if origin is None and not monuments:
         raise m.fail("origin", "give either origin (+ bearing_deg, scale) or [[map.monuments]]")
     if origin is not None and monuments:
         raise m.fail("monuments", "give either origin or monuments, not both")
-    m.warn_unknown(OverlayWarning)
+    m.reject_unknown()
     return MapFrame(crs, origin, bearing, scale, tuple(monuments), tol)
+
+
+def _check_control_points(cps: dict[str, tuple[float, float]], scans: list[ScanEntry], path: Path) -> None:
+    """Every [control_points] name must be a target of some bundle: a misspelt name would leave its
+    target without drawing coordinates and change the fit."""
+    if not cps:
+        return
+    known: set[str] = set()
+    for e in scans:
+        known |= target_names(e.bundle)
+    for name in cps:
+        if name not in known:
+            near = difflib.get_close_matches(name, sorted(known), n=1, cutoff=0.6)
+            hint = f"; did you mean {near[0]!r}?" if near else ""
+            raise SiteFileError(f"names no target of any bundle{hint}", source=path, field=f"control_points.{name}")

@@ -2,8 +2,8 @@
 
 from __future__ import annotations
 
+import difflib
 import sys
-import warnings
 from pathlib import Path
 from typing import Any
 
@@ -16,11 +16,18 @@ from .errors import OverlayError
 
 __all__ = ["Fields", "load_toml", "tomllib"]
 
+MAX_BYTES = 16 << 20  # 16 MiB: far beyond any real site file (thousands of scans) or manifest
+
 
 def load_toml(path: Path, error: type[OverlayError]) -> dict[str, Any]:
     """Parse ``path``; a missing file or a syntax error becomes ``error`` naming the file."""
-    if not path.is_file():
+    if not path.exists():
         raise error("file not found", source=path)
+    if not path.is_file():
+        raise error("not a regular file", source=path)
+    if path.stat().st_size > MAX_BYTES:
+        raise error(f"is {path.stat().st_size} bytes; a manifest or site file of more than {MAX_BYTES} bytes is not "
+                    "one", source=path)
     try:
         with path.open("rb") as fh:
             return tomllib.load(fh)
@@ -28,13 +35,16 @@ def load_toml(path: Path, error: type[OverlayError]) -> dict[str, Any]:
         raise error(f"not valid TOML ({exc})", source=path) from exc
     except UnicodeDecodeError as exc:
         raise error("not UTF-8 text", source=path) from exc
+    except RecursionError as exc:
+        raise error("not a usable TOML file (nested too deeply)", source=path) from exc
 
 
 class Fields:
     """Typed access to one TOML table, each failure naming file and dotted field.
 
-    Keeps track of the keys it was asked for, so the caller can warn about the
-    unknown ones (the bundle format asks readers to ignore them with a warning).
+    Keeps track of the keys it was asked for, so the caller can refuse the
+    unknown ones: a misspelt key would otherwise fall back to a default and
+    change a number without a word.
     """
 
     def __init__(self, table: Any, prefix: str, source: Path, error: type[OverlayError]):
@@ -50,6 +60,11 @@ class Fields:
         return f"{self.prefix}.{key}" if self.prefix else key
 
     def fail(self, key: str, problem: str) -> OverlayError:
+        """The error for ``key``; when the key is missing but a similar unknown one is present, say so."""
+        if key not in self.table:
+            near = difflib.get_close_matches(key, self.unknown(), n=1, cutoff=0.6)
+            if near:
+                problem += f" (the file has {self.name(near[0])!r}: misspelt?)"
         return self.error(problem, source=self.source, field=self.name(key))
 
     def has(self, key: str) -> bool:
@@ -126,11 +141,18 @@ class Fields:
         return Fields(value, self.name(key), self.source, self.error)
 
     def unknown(self) -> list[str]:
-        """Dotted names of keys present but never asked for."""
-        return [self.name(k) for k in self.table if k not in self.seen]
+        """Keys present but never asked for."""
+        return [k for k in self.table if k not in self.seen]
 
-    def warn_unknown(self, category: type[Warning]) -> None:
-        """Warn (file and dotted names) about keys present but never asked for: ignored, not fatal."""
+    def reject_unknown(self, renamed: dict[str, str] | None = None) -> None:
+        """Refuse a key nobody asked for, naming it and the nearest known key ("did you mean …")."""
         extra = self.unknown()
-        if extra:
-            warnings.warn(f"{self.source}: ignoring unknown field(s) {', '.join(extra)}", category, stacklevel=4)
+        if not extra:
+            return
+        key = extra[0]
+        if renamed and key in renamed:
+            raise self.fail(key, f"is no longer read: use {renamed[key]}")
+        near = difflib.get_close_matches(key, sorted(self.seen), n=1, cutoff=0.6)
+        hint = f"; did you mean {near[0]!r}?" if near else f"; known here: {', '.join(sorted(self.seen)) or 'none'}"
+        more = f" ({len(extra) - 1} more unknown: {', '.join(extra[1:4])})" if len(extra) > 1 else ""
+        raise self.fail(key, f"unknown field{hint}{more}")

@@ -28,6 +28,7 @@ def write_bundle(
     targets: bool = True,
     fs: float = 25600.0,
     n_samples: int = 1024,
+    scan_id: str = "S-T1",
 ) -> Path:
     """A small valid bundle on a regular grid; keyword arguments bend it for the bad cases."""
     folder.mkdir(parents=True, exist_ok=True)
@@ -40,7 +41,7 @@ def write_bundle(
             row["ver_db"] = f"{ver[k]:.4f}"
         lines.append(",".join(str(row.get(h, "")) for h in points_header.split(",")))
     (folder / "points.csv").write_text("\n".join(lines) + "\n")
-    body = 'format = "scan-bundle/1"\n\n[scan]\nid = "S-T1"\nelement = "EL-1"\n\n[coordinates]\nkind = "surface"\nunit = "m"\n\n'
+    body = f'format = "scan-bundle/1"\n\n[scan]\nid = "{scan_id}"\nelement = "EL-1"\n\n[coordinates]\nkind = "surface"\nunit = "m"\n\n'
     if payload == "records":
         rng = np.random.default_rng(1)
         if records is None:
@@ -73,7 +74,7 @@ def write_site(folder: Path, bundles: list[str], extra: str = "", classes: str =
         drawing_unit = "m"
 
         [registration]
-        tolerance = 0.01
+        tolerance_m = 0.01
         """
     )
     text += classes

@@ -179,11 +179,19 @@ def test_nan_ver_points_become_invalid_not_fatal(tmp_path: Path) -> None:
     assert not scan.valid[5] and scan.valid.sum() == 47
 
 
-def test_unknown_fields_warn_but_read(bundle: Path) -> None:
-    text = (bundle / "scan.toml").read_text().replace('element = "EL-1"', 'element = "EL-1"\noperator = "x"')
+@pytest.mark.parametrize("old, new, field, hint", [
+    ('element = "EL-1"', 'element = "EL-1"\noperator = "x"', "scan.operator", "known here"),
+    ('element = "EL-1"', 'elemnt = "EL-1"', "scan.elemnt", "did you mean 'element'"),
+    ("sample_rate_hz", "sample_rate", "records.sample_rate_hz", "the file has 'records.sample_rate': misspelt"),
+    ("[band]", "[bands]", "band", "the file has 'bands': misspelt"),
+])
+def test_unknown_fields_are_errors_with_the_nearest_name(bundle: Path, old: str, new: str, field: str, hint: str) -> None:
+    # a misspelt field would silently fall back to a default and change a number: refused (exit 3)
+    text = (bundle / "scan.toml").read_text().replace(old, new, 1)
     (bundle / "scan.toml").write_text(text)
-    with pytest.warns(BundleWarning, match="scan.operator"):
+    with pytest.raises(BundleError, match=f"{field}: .*{hint}") as info:
         read_bundle(bundle)
+    assert info.value.exit_code == 3
 
 
 def test_clean_bundle_gives_no_warning(bundle: Path) -> None:

@@ -206,7 +206,7 @@ def test_collinear_targets_for_an_affine_fit_exit_4_nothing_written(tmp_path: Pa
         f'[[targets]]\nname = "L{k}"\nscanner = [{0.2 * k}, {0.1 * k}]\ndrawing = [{10 + 0.2 * k}, {20 + 0.1 * k}]\n\n' for k in range(4))
     toml.write_text(text)
     site = write_site(tmp_path, ["S-1"], extra="")
-    site.write_text(site.read_text().replace("tolerance = 0.01", 'tolerance = 0.01\nmodel = "affine"'))
+    site.write_text(site.read_text().replace("tolerance_m = 0.01", "tolerance_m = 0.01\nmodel = \"affine\""))
     assert main(["run", str(site), "--out", str(tmp_path / "out")]) == 4
     err = capsys.readouterr().err
     assert "L0, L1, L2, L3 are (nearly) collinear" in err and "S-1: targets:" in err

@@ -129,8 +129,16 @@ def test_map_crs_must_be_projected_metric_and_cover_site() -> None:
     with pytest.raises(CRSCheckError, match="metres are required"):
         check_map_crs(to_crs(2277), np.array([[3000000.0, 10000000.0]]))  # Texas Central, US survey feet
     check_map_crs(to_crs(25832), np.array([[512345.0, 5712468.0]]))  # inside 6°E..12°E
+    # just east of the area of use (12.5°E, 51°N): projections are used a little past their edge — a warning
+    edge = transform_xy(np.array([[12.5, 51.0]]), "EPSG:4258", "EPSG:25832")
     with pytest.warns(RegistrationWarning, match="outside the area of use of EPSG:25832"):
+        check_map_crs(to_crs(25832), edge)
+    # far outside (29°W) or not on the earth at all (an origin of 1e300): a wrong CRS or placement, exit 4
+    with pytest.raises(CRSCheckError, match="more than 3 degrees outside") as info:
         check_map_crs(to_crs(25832), np.array([[-2500000.0, 5712468.0]]))
+    assert info.value.exit_code == 4
+    with pytest.raises(CRSCheckError, match="not a place on the earth"):
+        check_map_crs(to_crs(25832), np.array([[1e300, 5712468.0]]))
 
 
 def test_gn72_lambert_conic_2sp_through_our_crs_path() -> None:

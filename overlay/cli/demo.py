@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import dataclasses
 from pathlib import Path
 
 from ..demo import generate
@@ -25,5 +26,5 @@ def execute(args: argparse.Namespace) -> int:
         print(f"demo site generated in {site_path.parent}")
     site = read_site(site_path)
     if args.accept_misfit:
-        site.accept_misfit = True
+        site = dataclasses.replace(site, accept_misfit=True)
     return run_and_write(site, out / "results", args, overwrite=True)

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import dataclasses
 from pathlib import Path
 
 from ..site import read_site
@@ -21,5 +22,5 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 def execute(args: argparse.Namespace) -> int:
     site = read_site(args.site)
     if args.accept_misfit:
-        site.accept_misfit = True
+        site = dataclasses.replace(site, accept_misfit=True)
     return run_and_write(site, args.out, args, overwrite=args.overwrite)

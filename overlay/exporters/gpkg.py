@@ -204,7 +204,7 @@ def _runs(result: "RunResult") -> pd.DataFrame:
             "fit_params": json.dumps(s.fit.transform.params()),
             "fit_rms": s.fit.rms,
             "fit_max": s.fit.worst[1],
-            "fit_tolerance": result.site.tolerance,
+            "fit_tolerance_m": result.site.tolerance_m,
             "fit_passed": int(s.fit_passed),
             "fit_override": int(result.site.accept_misfit and not s.fit_passed),
             "settings": json.dumps(result.settings(), sort_keys=True),
