@@ -9,11 +9,15 @@ a scan's result lets a rerun recompute only the scans that changed.
 
 from __future__ import annotations
 
+import contextlib
+import ctypes
 import functools
 import hashlib
 import json
 import os
-import pickle
+import signal
+import sys
+import threading
 import time
 import warnings
 from concurrent.futures import ProcessPoolExecutor
@@ -21,10 +25,11 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable, Iterable
 
-from . import __version__
-from .errors import OverlayError, UsageError
+from . import __version__, cache
+from .errors import CacheWarning, OverlayError, UsageError
 from .pipeline import RunResult, ScanResult, finish_site, now_utc, scan_entry
 from .site import ScanEntry, Site
+from .staging import part_path, remove_stale_parts
 
 BUNDLE_FILES = ("scan.toml", "points.csv", "records.npy", "spectra.npy", "frequencies.npy")
 
@@ -67,7 +72,8 @@ def bundle_digest(folder: Path, known: dict[str, list] | None = None) -> str:
     h = hashlib.blake2b(digest_size=20)
     for name in BUNDLE_FILES:
         p = folder / name
-        if not p.exists():
+        if not p.is_file():  # absent, or a pipe/device the bundle reader will refuse: never opened here
+            h.update(name.encode() + (b"?" if p.exists() else b"-"))
             continue
         st = p.stat()
         key = str(p.resolve())
@@ -96,7 +102,7 @@ def settings_digest(site: Site, entry: ScanEntry) -> str:
     shaping = {
         "version": __version__,
         "code": code_digest(),
-        "unit": site.drawing_unit, "tolerance": site.tolerance, "accept": site.accept_misfit, "model": site.model,
+        "unit": site.drawing_unit, "tolerance_m": site.tolerance_m, "accept": site.accept_misfit, "model": site.model,
         "reference": site.reference, "percentile": site.percentile, "incidence": site.incidence_correction,
         "min_level": site.min_signal_level, "min_snr": site.min_snr_db, "min_area": site.min_area_m2,
         "classes": [(c.name, c.threshold_db) for c in site.classes], "concrete": repr(site.concrete),
@@ -116,6 +122,8 @@ def _work(entry: ScanEntry, site: Site, progress: Callable[[int], None] | None =
         try:
             result, failure = scan_entry(entry, site, progress), None
         except OverlayError as exc:
+            if exc.source is None:  # a stage that does not know the file: name the bundle
+                exc = type(exc)(exc.problem, source=entry.bundle, field=exc.field)
             result, failure = None, Failure(entry.bundle, exc.line(), exc.exit_code)
         except Exception as exc:  # a bug in one scan must not lose the others
             result, failure = None, Failure(entry.bundle, f"unexpected {type(exc).__name__}: {exc}", 1)
@@ -137,23 +145,52 @@ def _load_index(cache_dir: Path | None) -> dict[str, list]:
 def _save_index(cache_dir: Path | None, known: dict[str, list]) -> None:
     if cache_dir is None or not cache_dir.is_dir():  # no result was cached: leave no trace
         return
-    tmp = cache_dir / (INDEX + ".part")
+    tmp = part_path(cache_dir / INDEX)
     tmp.write_text(json.dumps(known))
     os.replace(tmp, cache_dir / INDEX)
 
 
 def _one_thread() -> None:
-    """Worker processes share the cores already: one spectra thread each."""
+    """Workers share the cores already: one spectra thread each."""
     from . import spectra
 
     spectra.DEFAULT_THREADS = 1
+
+
+def _pool_worker() -> None:
+    """A process-pool worker: one spectra thread, and it ends with its parent."""
+    _one_thread()
+    _die_with_parent()
+
+
+def _die_with_parent() -> None:
+    """A worker whose parent is killed (even by SIGKILL) ends too instead of running on alone.
+
+    On Linux the kernel sends the signal (prctl PR_SET_PDEATHSIG); elsewhere a watcher thread
+    notices the parent is gone.
+    """
+    parent = os.getppid()
+    signal.signal(signal.SIGTERM, signal.SIG_DFL)  # not the parent's clean-up handler: just end
+    if sys.platform.startswith("linux"):
+        with contextlib.suppress(OSError, AttributeError):
+            ctypes.CDLL(None, use_errno=True).prctl(1, signal.SIGTERM, 0, 0, 0)  # PR_SET_PDEATHSIG = 1
+        if os.getppid() != parent:  # the parent went before the call took effect
+            os._exit(1)
+        return
+
+    def watch() -> None:
+        while os.getppid() == parent:
+            time.sleep(1.0)
+        os._exit(1)
+
+    threading.Thread(target=watch, daemon=True).start()
 
 
 def _map_local(entries: list[ScanEntry], site: Site, jobs: int, progress: Callable[[int], None] | None
                ) -> Iterable[tuple[Any, ...]]:
     if jobs <= 1:
         return (_work(e, site, progress) for e in entries)
-    pool = ProcessPoolExecutor(max_workers=jobs, initializer=_one_thread)
+    pool = ProcessPoolExecutor(max_workers=jobs, initializer=_pool_worker)
     futures = [pool.submit(_work, e, site) for e in entries]
 
     def results() -> Iterable[tuple[Any, ...]]:
@@ -199,17 +236,23 @@ def run_campaign(
     todo: list[int] = []
     keys: dict[int, Path] = {}
     known = _load_index(cache_dir)
+    if cache_dir is not None:
+        remove_stale_parts(cache_dir, ".")
     for k, entry in enumerate(site.scans):
         if cache_dir is not None and entry.bundle.is_dir():
-            path = cache_dir / f"{bundle_digest(entry.bundle, known)}-{settings_digest(site, entry)}.pickle"
+            path = cache_dir / f"{bundle_digest(entry.bundle, known)}-{settings_digest(site, entry)}.npz"
             keys[k] = path
             if path.is_file():
-                with path.open("rb") as fh:
-                    results[k] = pickle.load(fh)
-                out.cached.append(results[k].scan_id)
-                if on_done is not None:
-                    on_done(results[k].scan_id, "cached")
-                continue
+                try:
+                    results[k] = cache.load(path)
+                except cache.CacheEntryError as exc:
+                    warnings.warn(f"{path}: cache entry {exc}; computing the scan again", CacheWarning, stacklevel=2)
+                    path.unlink(missing_ok=True)
+                else:
+                    out.cached.append(results[k].scan_id)
+                    if on_done is not None:
+                        on_done(results[k].scan_id, "cached")
+                    continue
         todo.append(k)
     entries = [site.scans[k] for k in todo]
     if jobs < 1:
@@ -227,11 +270,11 @@ def run_campaign(
         results[k] = result
         out.computed.append(result.scan_id)
         if k in keys:
-            keys[k].parent.mkdir(parents=True, exist_ok=True)
-            tmp = keys[k].with_suffix(".part")
-            with tmp.open("wb") as fh:
-                pickle.dump(result, fh, protocol=pickle.HIGHEST_PROTOCOL)
-            os.replace(tmp, keys[k])
+            try:
+                cache.save(result, keys[k])
+            except OSError as exc:  # a cache that cannot be written changes no number
+                warnings.warn(f"{keys[k].parent}: cannot write the cache ({exc.strerror or exc}); going on without",
+                              CacheWarning, stacklevel=2)
         if on_done is not None:
             on_done(result.scan_id, "done")
     _save_index(cache_dir, known)

@@ -7,7 +7,9 @@ Exit codes (DESIGN.md §6): 0 done, 1 unexpected, 2 usage, 3 bad input,
 from __future__ import annotations
 
 import argparse
+import signal
 import sys
+import threading
 import traceback
 import warnings
 from typing import Sequence
@@ -46,6 +48,8 @@ def main(argv: Sequence[str] | None = None) -> int:
         return EXIT_USAGE
     shown = warnings.showwarning
     warnings.showwarning = _show_warning
+    main_thread = threading.current_thread() is threading.main_thread()
+    previous = signal.signal(signal.SIGTERM, _terminated) if main_thread else None
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("default", OverlayWarning)
@@ -55,8 +59,8 @@ def main(argv: Sequence[str] | None = None) -> int:
             traceback.print_exc()
         print(f"overlay: error: {exc.line()}", file=sys.stderr)
         return exc.exit_code
-    except KeyboardInterrupt:
-        print("overlay: interrupted; nothing was moved into place", file=sys.stderr)
+    except (KeyboardInterrupt, Terminated):
+        print("overlay: interrupted; outputs and the owner's files are as they were before the run", file=sys.stderr)
         return EXIT_UNEXPECTED
     except Exception as exc:  # the one place that catches everything, to print one line
         if args.verbose:
@@ -65,6 +69,16 @@ def main(argv: Sequence[str] | None = None) -> int:
         return EXIT_UNEXPECTED
     finally:
         warnings.showwarning = shown
+        if main_thread:
+            signal.signal(signal.SIGTERM, previous)
+
+
+class Terminated(BaseException):
+    """SIGTERM as an exception, so every temporary file and open transaction is cleaned up on the way out."""
+
+
+def _terminated(signum: int, frame: object) -> None:
+    raise Terminated(signum)
 
 
 def _show_warning(message: Warning | str, category: type[Warning], *args: object, **kwargs: object) -> None:
