@@ -9,6 +9,7 @@ import numpy as np
 import scipy.interpolate
 import scipy.spatial
 import shapely
+import shapely.errors
 from shapely.geometry import Polygon
 
 from .errors import BundleError
@@ -50,7 +51,18 @@ class Grid:
             return Polygon()
         corners = [(r, c), (r + 1, c), (r + 1, c + 1), (r, c + 1), (r, c)]
         rings = np.stack([np.stack([self.x[i, j], self.y[i, j]], axis=-1) for i, j in corners], axis=1)
-        return _largest(shapely.union_all(shapely.polygons(rings)))
+        _check_unfolded(rings, r, c)
+        cells = shapely.polygons(rings)
+        try:
+            union = shapely.union_all(cells)
+        except shapely.errors.GEOSException as exc:
+            raise BundleError(f"the grid's cells overlap ({exc}); a point's coordinates do not fit its row/col",
+                              field="points.csv") from exc
+        total = float(shapely.area(cells).sum())
+        if union.area < total * (1 - 1e-6):
+            raise BundleError(f"the grid's cells overlap ({total - union.area:.3g} of {total:.3g} area units twice); "
+                              "a point's coordinates do not fit its row/col", field="points.csv")
+        return _largest(union)
 
     def spacing(self) -> float:
         """Median distance between neighbouring nodes, in the grid's coordinate unit."""
@@ -60,7 +72,22 @@ class Grid:
         all_d = np.concatenate(d)
         if all_d.size == 0:
             raise BundleError("grid has no neighbouring points; cannot tell its spacing")
-        return float(np.median(all_d))
+        step = float(np.median(all_d))
+        if not step > 0 or not np.isfinite(step):
+            raise BundleError(f"grid spacing is {step:g}: neighbouring points coincide", field="points.csv")
+        return step
+
+
+def _check_unfolded(rings: np.ndarray, r: np.ndarray, c: np.ndarray) -> None:
+    """Every cell turns the same way round: a point displaced across its neighbours folds the grid."""
+    x, y = rings[:, :4, 0], rings[:, :4, 1]
+    signed = 0.5 * np.sum(x * np.roll(y, -1, axis=1) - np.roll(x, -1, axis=1) * y, axis=1)
+    ref = np.median(signed)
+    bad = ~(signed * np.sign(ref) > 1e-9 * abs(ref)) if ref != 0 else np.ones(len(signed), bool)
+    if bad.any():
+        k = int(np.argmax(bad))
+        raise BundleError(f"the grid folds over itself at the cell of row {int(r[k])}, col {int(c[k])} (counted from the "
+                          "smallest index): a point's coordinates do not fit its row/col", field="points.csv")
 
 
 def grid_from_indices(xy: np.ndarray, row: np.ndarray, col: np.ndarray) -> Grid:
@@ -142,7 +169,16 @@ class ScatterGrid:
     def __init__(self, xy: np.ndarray, max_edge: float = 2.5):
         if len(xy) < 3:
             raise BundleError("at least 3 points are needed to contour scattered points")
-        hull = scipy.spatial.ConvexHull(xy)
+        centred = xy - xy.mean(axis=0)
+        sv = np.linalg.svd(centred, compute_uv=False)
+        if not sv[0] > 0 or sv[-1] <= 1e-9 * sv[0]:
+            raise BundleError("the scattered points coincide or lie on one line; a scan needs points spread over "
+                              "the surface (or give row/col)", field="points.csv")
+        try:
+            hull = scipy.spatial.ConvexHull(xy)
+        except scipy.spatial.QhullError as exc:
+            raise BundleError(f"the scattered points do not span an area ({exc.args[0].splitlines()[0]})",
+                              field="points.csv") from exc
         self.step = float(np.sqrt(hull.volume / len(xy)))  # the spacing of a regular grid of equal density
         if not self.step > 0:
             raise BundleError("scattered points coincide; cannot tell their spacing")

@@ -220,9 +220,9 @@ def _fit_height(fig: plt.Figure, ax: plt.Axes, below_in: float = 1.0, above_in: 
 
 def drawing_lines(path: object) -> list[np.ndarray]:
     """Lines and polylines of a DXF's model space (for the site map's background)."""
-    import ezdxf
+    from .exporters.dxf import read_base_dxf
 
-    doc = ezdxf.readfile(path)
+    doc = read_base_dxf(path)
     out = []
     for e in doc.modelspace().query("LINE LWPOLYLINE"):
         if e.dxftype() == "LINE":

@@ -20,6 +20,7 @@ import numpy as np
 import scipy.fft
 import scipy.signal
 
+from .errors import SignalError
 from .gate import Gate
 
 DEFAULT_THREADS: int | None = None  # None: one per core; campaign workers set 1
@@ -70,10 +71,18 @@ def _density_scale(w: np.ndarray, fs: float, n: int) -> float:
     return 1.0 / (fs * float(np.sum(w.astype(np.float64) ** 2)))
 
 
+MIN_BAND_BINS = 3  # a peak (parabola through three bins) and a noise floor need at least three
+
+
 def band_slice(freqs: np.ndarray, band_hz: tuple[float, float]) -> slice:
-    """Bins whose centre lies inside the closed band."""
+    """Bins whose centre lies inside the closed band; a band holding fewer than three is refused."""
     lo = int(np.searchsorted(freqs, band_hz[0], side="left"))
     hi = int(np.searchsorted(freqs, band_hz[1], side="right"))
+    if hi - lo < MIN_BAND_BINS:
+        step = float(np.median(np.diff(freqs))) if len(freqs) > 1 else float("nan")
+        raise SignalError(f"band {band_hz[0]:g}-{band_hz[1]:g} Hz holds {hi - lo} frequency bin(s) at a resolution of "
+                          f"{step:.3g} Hz; at least {MIN_BAND_BINS} are needed — widen the band or lengthen the gate",
+                          field="band.hz")
     return slice(lo, hi)
 
 

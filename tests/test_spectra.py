@@ -249,8 +249,19 @@ def test_band_psd_equals_scipy_periodogram_for_any_length_and_band(n: int, lo: f
     band = (lo * nyq, min(nyq, lo * nyq + width * nyq))
     f_ref = scipy.fft.rfftfreq(n, 1 / FS)
     sel = (f_ref >= band[0]) & (f_ref <= band[1])
-    assume(sel.any())
+    assume(sel.sum() >= 3)  # fewer bins are refused (next test)
     x = np.random.default_rng(n).normal(offset, 1.0, (2, n))
     _, p_ref = scipy.signal.periodogram(x, FS, window="hann", scaling="density")
     sp = records_spectra(x.astype(np.float32), _gate(n), band, keep_psd=True)
     np.testing.assert_allclose(sp.band_psd, p_ref[:, sel], rtol=1e-3, atol=1e-6 * p_ref.max())
+
+
+def test_a_band_narrower_than_three_bins_is_refused() -> None:
+    # a peak (a parabola through three bins) and a noise floor need three bins; 400-410 Hz at a
+    # resolution of 100 Hz (512 samples at 51.2 kHz) holds one (the bin at 400 Hz) — a clear error
+    from overlay.errors import SignalError
+
+    x = np.random.default_rng(5).normal(0, 1.0, (4, 512)).astype(np.float32)
+    with pytest.raises(SignalError, match="holds 1 frequency bin.*at least 3") as info:
+        records_spectra(x, _gate(512), (400.0, 410.0))
+    assert info.value.exit_code == 3

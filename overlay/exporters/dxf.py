@@ -71,14 +71,20 @@ def is_ours(layer: Any) -> bool:
     return layer.has_xdata(APPID) and any(t.value == OURS for t in layer.get_xdata(APPID))
 
 
+def read_base_dxf(path: Path) -> Drawing:
+    """The owner's drawing, read; any failure is a site-file error naming it (exit 3), not a crash."""
+    try:
+        return ezdxf.readfile(path)
+    except Exception as exc:  # ezdxf raises DXFError, but a truncated file can end in any exception
+        raise SiteFileError(f"cannot read the base drawing ({type(exc).__name__}: {exc})", source=path,
+                            field="dxf.base") from exc
+
+
 def open_base(style: "DxfStyle", drawing_unit: str) -> tuple[Drawing, float]:
     """The owner's drawing and the factor from our drawing unit to its unit; refuses what cannot be converted."""
     assert style.base is not None
     src = str(style.base)
-    try:
-        doc = ezdxf.readfile(style.base)
-    except (OSError, ezdxf.DXFError) as exc:
-        raise SiteFileError(f"cannot read the base drawing ({exc})", source=src, field="dxf.base") from exc
+    doc = read_base_dxf(style.base)
     if doc.dxfversion < MIN_BASE_VERSION:
         raise SiteFileError(f"base drawing is DXF {doc.acad_release}; R2004 or newer is needed for fills",
                             source=src, field="dxf.base")
