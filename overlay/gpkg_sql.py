@@ -289,3 +289,72 @@ def touch_contents(con: sqlite3.Connection, layer: Layer) -> None:
                       f"(SELECT {quote(layer.geometry_column)} AS g FROM {quote(layer.table)})").fetchone()
     con.execute("UPDATE gpkg_contents SET last_change = ?, min_x = ?, min_y = ?, max_x = ?, max_y = ? "
                 "WHERE table_name = ?", (timestamp(), *ext, layer.table))
+
+
+# --- schema extension (field titles and descriptions) and layer styles ------------------------------
+
+SCHEMA_DEFINITION = "http://www.geopackage.org/spec/#extension_schema"
+
+
+def describe_columns(con: sqlite3.Connection, docs: dict[str, dict[str, tuple[str, str]]],
+                     enums: dict[tuple[str, str], Sequence[str]] | None = None,
+                     ranges: dict[tuple[str, str], tuple[float, float]] | None = None) -> None:
+    """Field titles and descriptions through the schema extension (GeoPackage standard, Annex F.9):
+    both of its tables with their gpkg_extensions rows (Req 141), and value constraints (enum, range)."""
+    con.execute("CREATE TABLE IF NOT EXISTS gpkg_data_columns (table_name TEXT NOT NULL, column_name TEXT NOT NULL, "
+                "name TEXT, title TEXT, description TEXT, mime_type TEXT, constraint_name TEXT, "
+                "CONSTRAINT pk_gdc PRIMARY KEY (table_name, column_name), CONSTRAINT gdc_tn UNIQUE (table_name, name))")
+    con.execute("CREATE TABLE IF NOT EXISTS gpkg_data_column_constraints (constraint_name TEXT NOT NULL, "
+                "constraint_type TEXT NOT NULL, value TEXT, min NUMERIC, min_is_inclusive BOOLEAN, max NUMERIC, "
+                "max_is_inclusive BOOLEAN, description TEXT, "
+                "CONSTRAINT gdcc_ntv UNIQUE (constraint_name, constraint_type, value))")
+    con.execute("CREATE TABLE IF NOT EXISTS gpkg_extensions (table_name TEXT, column_name TEXT, "
+                "extension_name TEXT NOT NULL, definition TEXT NOT NULL, scope TEXT NOT NULL, "
+                "CONSTRAINT ge_tce UNIQUE (table_name, column_name, extension_name))")
+    for table in ("gpkg_data_columns", "gpkg_data_column_constraints"):
+        con.execute("INSERT OR IGNORE INTO gpkg_extensions VALUES (?, NULL, 'gpkg_schema', ?, 'read-write')",
+                    (table, SCHEMA_DEFINITION))
+    names: dict[tuple[str, str], str] = {}
+    for (table, col), values in (enums or {}).items():
+        names[table, col] = name = f"{table}_{col}_values"
+        con.execute("DELETE FROM gpkg_data_column_constraints WHERE constraint_name = ?", (name,))
+        for v in values:
+            con.execute("INSERT INTO gpkg_data_column_constraints (constraint_name, constraint_type, value) "
+                        "VALUES (?, 'enum', ?)", (name, v))
+    for (table, col), (lo, hi) in (ranges or {}).items():
+        names[table, col] = name = f"{table}_{col}_range"
+        con.execute("DELETE FROM gpkg_data_column_constraints WHERE constraint_name = ?", (name,))
+        con.execute("INSERT INTO gpkg_data_column_constraints (constraint_name, constraint_type, min, "
+                    "min_is_inclusive, max, max_is_inclusive) VALUES (?, 'range', ?, 1, ?, 1)", (name, lo, hi))
+    for table, cols in docs.items():
+        present = columns(con, table)
+        for col, (title, text) in cols.items():
+            if col in present:
+                con.execute("INSERT OR REPLACE INTO gpkg_data_columns (table_name, column_name, name, title, "
+                            "description, constraint_name) VALUES (?, ?, ?, ?, ?, ?)",
+                            (table, col, col, title, text, names.get((table, col))))
+
+
+STYLE_TABLE = "layer_styles"
+
+
+def put_style(con: sqlite3.Connection, layer: Layer, name: str, qml: str, sld: str, description: str) -> bool:
+    """Store a layer's style in ``layer_styles`` (the table QGIS reads default styles from; created as
+    QGIS creates it and registered as an attributes table); it becomes the layer's default unless
+    someone else's default style is there already.  True when ours is the default."""
+    if STYLE_TABLE not in table_names(con):
+        con.execute(f'CREATE TABLE "{STYLE_TABLE}" ("id" INTEGER PRIMARY KEY AUTOINCREMENT NOT NULL, '
+                    '"f_table_catalog" TEXT(256), "f_table_schema" TEXT(256), "f_table_name" TEXT(256), '
+                    '"f_geometry_column" TEXT(256), "styleName" TEXT(30), "styleQML" TEXT, "styleSLD" TEXT, '
+                    '"useAsDefault" BOOLEAN, "description" TEXT, "owner" TEXT(30), "ui" TEXT(30), '
+                    "\"update_time\" DATETIME DEFAULT (strftime('%Y-%m-%dT%H:%M:%fZ','now')))")
+        con.execute("INSERT INTO gpkg_contents (table_name, data_type, identifier, description, last_change) "
+                    "VALUES (?, 'attributes', ?, 'default layer styles', ?)", (STYLE_TABLE, STYLE_TABLE, timestamp()))
+    con.execute(f'DELETE FROM "{STYLE_TABLE}" WHERE f_table_name = ? AND styleName = ?', (layer.table, name))
+    others = con.execute(f'SELECT count(*) FROM "{STYLE_TABLE}" WHERE f_table_name = ? AND useAsDefault',
+                         (layer.table,)).fetchone()[0]
+    con.execute(f'INSERT INTO "{STYLE_TABLE}" (f_table_catalog, f_table_schema, f_table_name, f_geometry_column, '
+                'styleName, styleQML, styleSLD, useAsDefault, description, owner, update_time) '
+                "VALUES ('', '', ?, ?, ?, ?, ?, ?, ?, '', ?)",
+                (layer.table, layer.geometry_column, name, qml, sld, int(others == 0), description, timestamp()))
+    return others == 0

@@ -24,12 +24,13 @@ from matplotlib.lines import Line2D  # noqa: E402
 from matplotlib.patches import Patch  # noqa: E402
 from matplotlib.tri import Triangulation  # noqa: E402
 
+from . import palette  # noqa: E402
+
 if TYPE_CHECKING:
     from .pipeline import RunResult, ScanResult
     from .zones import Zone
 
 VER_CMAP = "cividis"
-CLASS_STYLE = (("#0072B2", "-"), ("#E69F00", "--"), ("#D55E00", "-."), ("#CC79A7", ":"), ("#009E73", "-"))
 DPI = 110
 PREVIEW_SIZE = (8.0, 6.0)  # inches → 880 × 660 pixels
 SHEET_SIZE = (9.0, 3.6)
@@ -60,8 +61,9 @@ def _rings(ax: plt.Axes, geom: object, **kw: object) -> None:
 
 
 def _class_style(result: "RunResult", name: str) -> tuple[str, str]:
-    k = [c.name for c in result.site.classes].index(name)
-    return CLASS_STYLE[k % len(CLASS_STYLE)]
+    """(colour, line style) of a class: the palette every output shares."""
+    style = palette.for_site(result.site)[name]
+    return style.hex, style.dash
 
 
 def _scale_bar(ax: plt.Axes, unit_m: float) -> None:
@@ -191,9 +193,9 @@ def site_map(result: "RunResult", drawing_lines: list[np.ndarray] | None = None)
         colour, ls = _class_style(result, z.class_name)
         ax.add_patch(MplPolygon(np.asarray(z.contour.exterior.coords), closed=True, fc=colour, ec=colour, alpha=0.5, lw=0.8))
         if z.defect_id == z.zone_id:
-            _rings(ax, z.footprint, color="#009E73", lw=0.8)
+            _rings(ax, z.footprint, color=palette.hex_of(palette.REPAIR_RGB), lw=0.8)
     handles = [Patch(color=_class_style(result, c.name)[0], alpha=0.5, label=f"{c.name} >= {c.threshold_db:g} dB")
-               for c in result.site.classes] + [Line2D([], [], color="#009E73", label="repair footprint")]
+               for c in result.site.classes] + [Line2D([], [], color=palette.hex_of(palette.REPAIR_RGB), label="repair footprint")]
     ax.set_aspect("equal")
     ax.autoscale_view()
     ax.set_xlabel(f"drawing x ({result.site.drawing_unit})")

@@ -108,7 +108,7 @@ def test_geopackage_against_ogc_standard(written: dict) -> None:
         contents = dict(con.execute("select table_name, data_type from gpkg_contents"))
         assert contents == {"zones": "features", "points": "features", "scan_extents": "features",
                             "targets": "features", "defect_outlines": "features", "repair_footprints": "features",
-                            "runs": "attributes"}
+                            "runs": "attributes", "layer_styles": "attributes"}
         geo = {r[0]: (r[1], r[2]) for r in con.execute("select table_name, geometry_type_name, srs_id from gpkg_geometry_columns")}
         assert geo["zones"] == ("MULTIPOLYGON", 25832) and geo["points"] == ("POINT", 25832)
         assert geo["scan_extents"] == ("POLYGON", 25832)
@@ -184,11 +184,17 @@ def test_geopackage_field_descriptions(written: dict) -> None:
     con = sqlite3.connect(written["paths"]["gpkg"])
     try:
         rows = dict(con.execute("select column_name, description from gpkg_data_columns where table_name='zones'"))
-        ext = con.execute("select extension_name from gpkg_extensions where table_name='gpkg_data_columns'").fetchall()
+        titles = dict(con.execute("select column_name, title from gpkg_data_columns where table_name='zones'"))
+        # GeoPackage standard, schema extension (Req 141): both tables, one gpkg_schema row each
+        ext = sorted(con.execute("select table_name, scope from gpkg_extensions where extension_name='gpkg_schema'"))
+        enum = [r[0] for r in con.execute("select value from gpkg_data_column_constraints c join gpkg_data_columns d "
+                                          "on d.constraint_name = c.constraint_name where d.column_name = 'class' order by c.rowid")]
         assert con.execute("pragma integrity_check").fetchone()[0] == "ok"
     finally:
         con.close()
-    assert "order of magnitude" in rows["depth_low_m"] and ext == [("gpkg_schema",)]
+    assert "order of magnitude" in rows["depth_low_m"] and titles["area_m2"] == "Contour area (m²)"
+    assert ext == [("gpkg_data_column_constraints", "read-write"), ("gpkg_data_columns", "read-write")]
+    assert enum == [c.name for c in written["result"].site.classes]
 
 
 def test_gdal_command_line_reads_the_geopackage(written: dict) -> None:

@@ -1,7 +1,12 @@
 """GeoPackage exporter: zones, points, scan extents and targets in the map CRS, plus a runs table.
 
-Written through pyogrio (GDAL) as GeoPackage 1.3.  Without a map frame in the
-site file, geometries stay in drawing coordinates (metres) with no CRS.
+Written through pyogrio (GDAL) as GeoPackage 1.3, the version the GIS of long-term
+distributions reads without a warning; dates are DATETIME (UTC) and flags BOOLEAN.
+Field titles and descriptions go into the schema extension (with its constraints
+table, so GDAL's validator passes), and each layer gets a default style in
+``layer_styles`` in the shared palette, which a desktop GIS applies at open
+(QGIS also takes its field aliases from it).  Without a map frame in the site
+file, geometries stay in drawing coordinates (metres) with no CRS.
 """
 
 from __future__ import annotations
@@ -19,13 +24,15 @@ import pyogrio
 import shapely
 from shapely.geometry import MultiPolygon, Point
 
+from .. import gpkg_sql, palette, styles
 from ..cautions import CAUTIONS
 from ..zones import ZONE_FIELDS
 
 if TYPE_CHECKING:
     from ..pipeline import RunResult
 
-GPKG_OPTIONS = {"VERSION": "1.3"}
+GPKG_VERSION = "1.3"  # read without a warning by GDAL 3.6 / QGIS 3.22 (Debian 12) and every later release
+STYLE_NAME = "overlay default"
 
 
 def to_output_frame(result: "RunResult") -> tuple[Any, Any]:
@@ -36,34 +43,85 @@ def to_output_frame(result: "RunResult") -> tuple[Any, Any]:
     return (lambda g: shapely.transform(g, lambda xy: xy * u)), None
 
 
+def utc_times(values: Any) -> pd.Series:
+    """ISO-8601 UTC text ('' for unknown) as timezone-aware times: GeoPackage DATETIME, not text."""
+    return pd.to_datetime(pd.Series(list(values), dtype=object).replace("", None), utc=True)
+
+
 class GeoPackageExporter:
     name = "gpkg"
     suffix = ".gpkg"
     description = "layers zones, defect_outlines, repair_footprints, points, scan_extents, targets, table runs (GeoPackage 1.3)"
 
     def write(self, result: "RunResult", path: Path) -> None:
-        move, crs = to_output_frame(result)
-        zones = result.zones
-        zrec = pd.DataFrame([z.record() for z in zones]) if zones else pd.DataFrame(columns=list(ZONE_FIELDS))
-        zgeom = [MultiPolygon([move(z.contour)]) for z in zones]
-        layers: list[tuple[str, gpd.GeoDataFrame, str]] = [
-            ("zones", gpd.GeoDataFrame(zrec, geometry=gpd.GeoSeries(zgeom, crs=crs), crs=crs), "MultiPolygon"),
-            ("points", _points(result, move, crs), "Point"),
-            ("defect_outlines", _defects(result, move, crs, "defect"), "Polygon"),
-            ("repair_footprints", _defects(result, move, crs, "footprint"), "Polygon"),
-            ("scan_extents", _extents(result, move, crs), "Polygon"),
-            ("targets", _targets(result, move, crs), "Point"),
-        ]
+        layers = layer_frames(result)
         with warnings.catch_warnings():
             # without a map frame the layers are in drawing metres with no CRS, on purpose
             warnings.filterwarnings("ignore", message="'crs' was not provided")
-            for name, frame, gtype in layers:
+            for i, (name, frame, gtype) in enumerate(layers):
                 pyogrio.write_dataframe(
                     frame, path, layer=name, driver="GPKG", geometry_type=gtype, promote_to_multi=False,
-                    dataset_options=GPKG_OPTIONS if name == "zones" else None,
+                    dataset_options={"VERSION": GPKG_VERSION} if i == 0 else None,
                 )
             pyogrio.write_dataframe(_runs(result), path, layer="runs", driver="GPKG")
-        describe_columns(path, FIELD_DOCS)
+        con = sqlite3.connect(path)
+        try:
+            with con:
+                gpkg_sql.describe_columns(con, FIELD_DOCS, enums={("zones", "class"): [c.name for c in result.site.classes]},
+                                          ranges={("zones", "confidence"): (0.0, 1.0)})
+                found = gpkg_sql.layers(con)
+                for name, style in layer_styles(result).items():
+                    gpkg_sql.put_style(con, found[name], STYLE_NAME, styles.qml(style), styles.sld(style, name),
+                                       "written by overlay: classes in the colours of the DXF and the pictures")
+        finally:
+            con.close()
+
+
+def layer_frames(result: "RunResult") -> list[tuple[str, gpd.GeoDataFrame, str]]:
+    """(layer name, features, geometry type) of every spatial layer, in the output frame."""
+    move, crs = to_output_frame(result)
+    zones = result.zones
+    zrec = pd.DataFrame([z.record() for z in zones]) if zones else pd.DataFrame(columns=list(ZONE_FIELDS))
+    zrec["surveyed"] = utc_times(zrec["surveyed"])
+    zrec["n_points"] = zrec["n_points"].astype("int64")
+    zgeom = [MultiPolygon([move(z.contour)]) for z in zones]
+    return [
+        ("zones", gpd.GeoDataFrame(zrec, geometry=gpd.GeoSeries(zgeom, crs=crs), crs=crs), "MultiPolygon"),
+        ("points", _points(result, move, crs), "Point"),
+        ("defect_outlines", _defects(result, move, crs, "defect"), "Polygon"),
+        ("repair_footprints", _defects(result, move, crs, "footprint"), "Polygon"),
+        ("scan_extents", _extents(result, move, crs), "Polygon"),
+        ("targets", _targets(result, move, crs), "Point"),
+    ]
+
+
+def layer_styles(result: "RunResult") -> dict[str, styles.LayerStyle]:
+    """The default style of each layer: zones by class in the shared palette, the rest by kind."""
+    cls = palette.for_site(result.site)
+    by_class = styles.class_categories([(c.name, c.threshold_db, cls[c.name].rgb) for c in result.site.classes])
+
+    def aliases(layer: str, fields: list[str]) -> tuple[tuple[str, str], ...]:
+        return tuple((f, FIELD_DOCS[layer][f][0]) for f in fields if f in FIELD_DOCS.get(layer, {}))
+
+    zone_fields = ["fid", *ZONE_FIELDS]
+    return {
+        "zones": styles.LayerStyle("zones by class", attr="class", categories=by_class,
+                                   aliases=aliases("zones", zone_fields), fields=tuple(zone_fields)),
+        "defect_outlines": styles.LayerStyle("estimated defect outline", styles.Symbol(
+            "fill", palette.DEFECT_RGB, 0, palette.DEFECT_RGB, 0.5, "dash")),
+        "repair_footprints": styles.LayerStyle("repair footprint", styles.Symbol(
+            "fill", palette.REPAIR_RGB, 0, palette.REPAIR_RGB, 0.8, "solid")),
+        "scan_extents": styles.LayerStyle("scan extent", styles.Symbol(
+            "fill", palette.EXTENT_RGB, 0, palette.EXTENT_RGB, 0.3, "dot")),
+        "targets": styles.LayerStyle("control target", styles.Symbol(
+            "marker", palette.TARGET_RGB, shape="triangle", size_mm=2.5, width_mm=0.3)),
+        "points": styles.LayerStyle("measurement points", attr="valid", categories=(
+            styles.Category("true", "valid", styles.Symbol("marker", palette.EXTENT_RGB, shape="circle", size_mm=0.8,
+                                                      width_mm=0.0)),
+            styles.Category("false", "invalid (see invalid_reason)", styles.Symbol(
+                "marker", (0xD5, 0x5E, 0x00), shape="cross", size_mm=1.6, width_mm=0.4))),
+            aliases=aliases("points", ["fid", *POINT_FIELDS]), fields=("fid", *POINT_FIELDS)),
+    }
 
 
 def _points(result: "RunResult", move: Any, crs: Any) -> gpd.GeoDataFrame:
@@ -78,7 +136,7 @@ def _points(result: "RunResult", move: Any, crs: Any) -> gpd.GeoDataFrame:
             "energy": s.energy,
             "snr_db": s.snr_db,
             "incidence_deg": s.incidence_deg,
-            "valid": s.valid.astype(np.int16),
+            "valid": s.valid.astype(bool),
             "invalid_reason": s.invalid_reason.astype(str),
             "x": xy[:, 0],
             "y": xy[:, 1],
@@ -90,61 +148,54 @@ def _points(result: "RunResult", move: Any, crs: Any) -> gpd.GeoDataFrame:
     return gpd.GeoDataFrame(df, geometry=geom, crs=crs)
 
 
-FIELD_DOCS: dict[str, dict[str, str]] = {
+POINT_FIELDS = ("point_id", "scan_id", "ver_db", "peak_hz", "energy", "snr_db", "incidence_deg", "valid",
+                "invalid_reason")
+FIELD_DOCS: dict[str, dict[str, tuple[str, str]]] = {  # field: (title a GIS shows as the alias, description)
     "zones": {
-        "zone_id": "scan id . class . number, stable across runs",
-        "class": "class name; classes are nested, do not add their areas",
-        "threshold_db": "class level of vibration energy ratio, dB",
-        "defect_id": "zone of the lowest class whose defect outline this zone shares",
-        "area_m2": "area of the class contour, surface m2",
-        "area_low_m2": "contour shrunk by half a grid spacing, m2",
-        "area_high_m2": "contour grown by half a grid spacing, m2",
-        "outline_area_m2": "estimated defect outline (plate mode-shape model), m2",
-        "peak_hz": "peak frequency of the zone's averaged spectrum, Hz",
-        "peak_spread": "interquartile range over median of per-point peak frequencies",
-        "depth_low_m": "cover thickness, clamped-edge plate: order of magnitude only",
-        "depth_high_m": "cover thickness, simply supported plate: order of magnitude only",
-        "footprint_area_m2": "repair rectangle: outline grown by the cutting margin, m2",
-        "volume_low_m3": "footprint area x depth_low_m",
-        "volume_high_m3": "footprint area x depth_high_m",
-        "confidence": "support x contrast x coherence x quality, 0-1 (docs/zones.md)",
-        "station_m": "station of the centroid along the site alignment, m",
-        "offset_m": "offset of the centroid from the alignment, left positive, m",
+        "zone_id": ("Zone id", "scan id . class . number, stable across runs; '+n' when n more scans' zones were "
+                    "united with it (the provenance field lists them)"),
+        "class": ("Class", "class name; classes are nested, do not add their areas"),
+        "threshold_db": ("Class level (dB)", "class level of vibration energy ratio, dB"),
+        "defect_id": ("Defect id", "zone of the lowest class whose defect outline this zone shares"),
+        "area_m2": ("Contour area (m²)", "area of the class contour, surface m2"),
+        "area_low_m2": ("Contour area, low (m²)", "contour shrunk by half a grid spacing, m2"),
+        "area_high_m2": ("Contour area, high (m²)", "contour grown by half a grid spacing, m2"),
+        "perimeter_m": ("Perimeter (m)", "perimeter of the class contour, m"),
+        "outline_area_m2": ("Defect outline area (m²)", "estimated defect outline (plate mode-shape model), m2"),
+        "n_points": ("Points inside", "valid measurement points inside the contour"),
+        "ver_max_db": ("Largest VER (dB)", "largest vibration energy ratio inside, dB"),
+        "ver_mean_db": ("Mean VER (dB)", "mean vibration energy ratio inside, dB"),
+        "peak_hz": ("Peak frequency (Hz)", "peak frequency of the zone's averaged spectrum, Hz"),
+        "peak_spread": ("Peak spread", "interquartile range over median of per-point peak frequencies"),
+        "depth_low_m": ("Depth, low (m)", "cover thickness, clamped-edge plate: order of magnitude only"),
+        "depth_high_m": ("Depth, high (m)", "cover thickness, simply supported plate: order of magnitude only"),
+        "footprint_area_m2": ("Repair footprint (m²)", "repair rectangle: outline grown by the cutting margin, m2"),
+        "footprint_length_m": ("Footprint length (m)", "long side of the repair rectangle, m"),
+        "footprint_width_m": ("Footprint width (m)", "short side of the repair rectangle, m"),
+        "volume_low_m3": ("Removal volume, low (m³)", "footprint area x depth_low_m"),
+        "volume_high_m3": ("Removal volume, high (m³)", "footprint area x depth_high_m"),
+        "confidence": ("Confidence (0-1)", "support x contrast x coherence x quality, 0-1 (docs/zones.md)"),
+        "station_m": ("Station (m)", "station of the centroid along the site alignment, m"),
+        "offset_m": ("Offset (m)", "offset of the centroid from the alignment, left positive, m"),
+        "surveyed": ("Surveyed (UTC)", "when the scan was taken, UTC"),
+        "provenance": ("United from", "the per-scan zones this zone was united from"),
     },
     "points": {
-        "ver_db": "vibration energy ratio against the scan's reference, dB",
-        "energy": "band mean-square velocity normal to the surface, (m/s)2",
-        "snr_db": "in-band peak over the noise floor (median of every second band bin), dB",
-        "incidence_deg": "angle of the laser beam to the surface normal",
-        "invalid_reason": "why the point is not used (empty when valid)",
+        "ver_db": ("VER (dB)", "vibration energy ratio against the scan's reference, dB"),
+        "peak_hz": ("Peak frequency (Hz)", "peak of the point's band spectrum, Hz"),
+        "energy": ("Band energy ((m/s)²)", "band mean-square velocity normal to the surface, (m/s)2"),
+        "snr_db": ("SNR (dB)", "in-band peak over the noise floor (median of every second band bin), dB"),
+        "incidence_deg": ("Incidence (°)", "angle of the laser beam to the surface normal, degrees"),
+        "valid": ("Valid", "true when the point is used"),
+        "invalid_reason": ("Why not used", "why the point is not used (empty when valid)"),
+    },
+    "runs": {
+        "run_started": ("Run started (UTC)", "when the run started, UTC"),
+        "fit_passed": ("Fit passed", "true when every target residual is within the tolerance"),
+        "fit_override": ("Misfit accepted", "true when a failed fit was accepted by override"),
+        "fit_tolerance_m": ("Fit tolerance (m)", "worst target residual allowed, metres on the structure"),
     },
 }
-
-
-def describe_columns(path: Path, docs: dict[str, dict[str, str]]) -> None:
-    """Field descriptions in gpkg_data_columns (the GeoPackage schema extension), read by QGIS and others."""
-    con = sqlite3.connect(path)
-    try:
-        with con:
-            con.execute(
-                "CREATE TABLE IF NOT EXISTS gpkg_data_columns (table_name TEXT NOT NULL, column_name TEXT NOT NULL, "
-                "name TEXT, title TEXT, description TEXT, mime_type TEXT, constraint_name TEXT, "
-                "CONSTRAINT pk_gdc PRIMARY KEY (table_name, column_name), "
-                "CONSTRAINT gdc_tn UNIQUE (table_name, name))")
-            con.execute(
-                "CREATE TABLE IF NOT EXISTS gpkg_extensions (table_name TEXT, column_name TEXT, extension_name TEXT NOT NULL, "
-                "definition TEXT NOT NULL, scope TEXT NOT NULL, "
-                "CONSTRAINT ge_tce UNIQUE (table_name, column_name, extension_name))")
-            con.execute("INSERT OR IGNORE INTO gpkg_extensions VALUES ('gpkg_data_columns', NULL, 'gpkg_schema', "
-                        "'http://www.geopackage.org/spec/#extension_schema', 'read-write')")
-            for table, cols in docs.items():
-                present = {r[1] for r in con.execute(f'PRAGMA table_info("{table}")')}
-                for col, text in cols.items():
-                    if col in present:
-                        con.execute("INSERT OR REPLACE INTO gpkg_data_columns (table_name, column_name, name, title, "
-                                    "description) VALUES (?, ?, ?, ?, ?)", (table, col, col, col, text))
-    finally:
-        con.close()
 
 
 def _defects(result: "RunResult", move: Any, crs: Any, which: str) -> gpd.GeoDataFrame:
@@ -164,8 +215,9 @@ def _defects(result: "RunResult", move: Any, crs: Any, which: str) -> gpd.GeoDat
 
 
 def _extents(result: "RunResult", move: Any, crs: Any) -> gpd.GeoDataFrame:
-    rows = [{"scan_id": s.scan_id, "element": s.element, "surveyed": s.surveyed, "n_points": s.n_points,
-             "n_valid": int(s.valid.sum()), "spacing_m": s.spacing_m} for s in result.scans]
+    rows = pd.DataFrame([{"scan_id": s.scan_id, "element": s.element, "surveyed": s.surveyed, "n_points": s.n_points,
+                          "n_valid": int(s.valid.sum()), "spacing_m": s.spacing_m} for s in result.scans])
+    rows["surveyed"] = utc_times(rows["surveyed"])
     return gpd.GeoDataFrame(rows, geometry=[move(s.extent) for s in result.scans], crs=crs)
 
 
@@ -177,7 +229,7 @@ def _targets(result: "RunResult", move: Any, crs: Any) -> gpd.GeoDataFrame:
             rows.append({"scan_id": s.scan_id, "name": t.name, "scanner_x": t.scanner[0], "scanner_y": t.scanner[1],
                          "drawing_x": t.drawing[0], "drawing_y": t.drawing[1],
                          "residual_m": float(np.hypot(*t.residual)) * u,
-                         "leave_one_out_m": t.loo * u, "fit_model": s.fit.model, "fit_passed": int(s.fit_passed)})
+                         "leave_one_out_m": t.loo * u, "fit_model": s.fit.model, "fit_passed": bool(s.fit_passed)})
             geom.append(move(Point(t.drawing)))
     if not rows:
         return gpd.GeoDataFrame({"scan_id": [], "name": []}, geometry=gpd.GeoSeries([], crs=crs), crs=crs)
@@ -205,9 +257,11 @@ def _runs(result: "RunResult") -> pd.DataFrame:
             "fit_rms": s.fit.rms,
             "fit_max": s.fit.worst[1],
             "fit_tolerance_m": result.site.tolerance_m,
-            "fit_passed": int(s.fit_passed),
-            "fit_override": int(result.site.accept_misfit and not s.fit_passed),
+            "fit_passed": bool(s.fit_passed),
+            "fit_override": bool(result.site.accept_misfit and not s.fit_passed),
             "settings": json.dumps(result.settings(), sort_keys=True),
             "cautions": " ".join(CAUTIONS),
         })
-    return pd.DataFrame(rows)
+    frame = pd.DataFrame(rows)
+    frame["run_started"] = utc_times(frame["run_started"])
+    return frame
