@@ -396,4 +396,5 @@ def write_assets(path: Path, st: dict) -> None:
         geoms.append(poly)
     for old in [path, *path.parent.glob(f"{path.stem}.before-overlay*{path.suffix}")]:
         old.unlink(missing_ok=True)  # a new invented register: the backups of the previous one go with it
-    gpd.GeoDataFrame(rows, geometry=geoms, crs=st["crs"]).to_file(path, layer="deck_panels", driver="GPKG")
+    # written as GeoPackage 1.2, as an asset register of some years' standing would be: the merge must keep it so
+    gpd.GeoDataFrame(rows, geometry=geoms, crs=st["crs"]).to_file(path, layer="deck_panels", driver="GPKG", VERSION="1.2")

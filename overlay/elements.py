@@ -130,18 +130,21 @@ def split_by_assets(zones: list["Zone"], basis: str, to_map: Similarity | None, 
     """Each zone's affected polygon (defect outline or contour) cut by the assets it overlaps.
 
     Every piece belongs to one asset; pieces of one zone add up to its area
-    where the zone lies within the assets.  Geometries in the map CRS, areas in surface m².
+    where the zone lies within the assets.  Each piece also carries the area of the zone's
+    class contour on that asset.  Geometries in the map CRS, areas in surface m².
     """
     tree = shapely.STRtree(layer.outlines)
     pieces: list[dict[str, Any]] = []
     for z in zones:
         poly = z.defect if basis == "outline" else z.contour
         g = to_map.apply_geometry(poly) if to_map is not None else poly
+        contour = to_map.apply_geometry(z.contour) if to_map is not None else z.contour
         for k in tree.query(g, predicate="intersects"):
             part = shapely.intersection(g, layer.outlines[k])
             if part.is_empty or part.area <= 0:
                 continue
+            on_asset = shapely.intersection(contour, layer.outlines[k]).area
             pieces.append({"asset_id": layer.ids[k], "zone_id": z.zone_id, "defect_id": z.defect_id,
                            "scan_id": z.scan_id, "class": z.class_name, "area_m2": part.area / layer.area_factor,
-                           "geometry": part})
+                           "contour_area_m2": on_asset / layer.area_factor, "geometry": part})
     return pieces

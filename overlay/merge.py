@@ -32,16 +32,19 @@ import pyproj
 import shapely
 from shapely.geometry import MultiPolygon
 
-from . import gpkg_sql
+from . import gpkg_sql, palette, styles
 from .elements import asset_table_sql
 from .errors import CRSCheckError, OutputConflictError, RegistrationError, SiteFileError
 from .frames import reproject
+from .quantities import area_field, defects
 from .staging import glob_escape, part_path, remove_stale_parts
 
 if TYPE_CHECKING:
     from .pipeline import RunResult
+    from .zones import Zone
 
 SOURCE = "overlay"
+STYLE_NAME = "overlay findings"
 WAIT_S = 10.0  # how long a merge waits for another program's write lock before it refuses (exit 5)
 KEEP_BACKUPS = 3
 RESERVED_PREFIXES = ("gpkg_", "rtree_", "sqlite_", "gpkgext_")
@@ -49,7 +52,7 @@ KEY_FIELDS = ("source", "scan_id", "zone_id", "asset_id")
 FIELDS = {  # the findings table we create; an existing one must have KEY_FIELDS, the rest is added if missing
     "asset_id": "TEXT", "source": "TEXT", "scan_id": "TEXT", "zone_id": "TEXT", "defect_id": "TEXT", "class": "TEXT",
     "threshold_db": "REAL", "affected_area_m2": "REAL", "basis": "TEXT", "peak_hz": "REAL", "depth_low_m": "REAL",
-    "depth_high_m": "REAL", "confidence": "REAL", "inspected": "TEXT", "method": "TEXT", "run_key": "TEXT",
+    "depth_high_m": "REAL", "confidence": "REAL", "inspected": "DATETIME", "method": "TEXT", "run_key": "TEXT",
 }
 GEOMETRY_TYPES = ("MULTIPOLYGON", "GEOMETRY", "MULTISURFACE")
 
@@ -83,24 +86,63 @@ def check_layer_name(name: str, asset_layer: str | None, *, source: str | None =
                             f"({', '.join(RESERVED_PREFIXES)})", source=source, field="merge.findings_layer")
 
 
+def findings_fields(result: "RunResult") -> dict[str, str]:
+    """Our fields and their GeoPackage types: the fixed ones and one contour area per class."""
+    return {**FIELDS, **{area_field(c.name): "REAL" for c in result.site.classes}}
+
+
 def findings_rows(result: "RunResult") -> tuple[list[dict[str, Any]], list[Any]]:
-    """The rows this run contributes (one per zone and asset piece) and their geometries in the map CRS."""
+    """The rows this run contributes and their geometries (map CRS).
+
+    With ``basis = "outline"``: one row per defect and asset — the defect's estimated outline
+    cut by the asset, at the highest class the defect reaches, with every class's contour area
+    on that asset beside it.  With ``basis = "contour"``: one row per class zone and asset.
+    """
     spec = result.site.merge
     assert spec is not None
-    by_id = {z.zone_id: z for z in result.zones}
     key = run_key(result)
-    rows, geoms = [], []
+    areas = [area_field(c.name) for c in result.site.classes]
+    by_zone: dict[str, list[dict[str, Any]]] = {}
     for p in result.asset_pieces:
-        z = by_id[p["zone_id"]]
+        by_zone.setdefault(p["zone_id"], []).append(p)
+    rows, geoms = [], []
+
+    def row(p: dict[str, Any], zone: "Zone", zone_id: str, cls: str, class_areas: dict[str, float | None]) -> None:
+        level = next(c.threshold_db for c in result.site.classes if c.name == cls)
         rows.append({
-            "asset_id": p["asset_id"], "source": SOURCE, "scan_id": p["scan_id"], "zone_id": p["zone_id"],
-            "defect_id": p["defect_id"], "class": p["class"], "threshold_db": z.threshold_db,
+            "asset_id": p["asset_id"], "source": SOURCE, "scan_id": p["scan_id"], "zone_id": zone_id,
+            "defect_id": p["defect_id"], "class": cls, "threshold_db": level,
             "affected_area_m2": round(p["area_m2"], 6), "basis": result.site.basis,
-            "peak_hz": _real(z.peak_hz), "depth_low_m": _real(z.depth_low_m), "depth_high_m": _real(z.depth_high_m),
-            "confidence": z.confidence, "inspected": z.surveyed, "method": spec.method, "run_key": key,
+            "peak_hz": _real(zone.peak_hz), "depth_low_m": _real(zone.depth_low_m), "depth_high_m": _real(zone.depth_high_m),
+            "confidence": zone.confidence, "inspected": _datetime(zone.surveyed), "method": spec.method, "run_key": key,
+            **{k: None if v is None else round(v, 6) for k, v in class_areas.items()},
         })
         geoms.append(p["geometry"])
+
+    if result.site.basis == "outline":
+        for d in defects(result.zones, result.site.classes):
+            for p in by_zone.get(d.defect_id, []):  # the lowest-class zone's pieces: the outline cut by each asset
+                on_asset = dict.fromkeys(areas, 0.0)
+                for z in d.zones:
+                    for q in by_zone.get(z.zone_id, []):
+                        if q["asset_id"] == p["asset_id"]:
+                            on_asset[area_field(z.class_name)] += q["contour_area_m2"]
+                row(p, d.top, d.defect_id, d.highest_class, dict(on_asset))
+    else:
+        by_id = {z.zone_id: z for z in result.zones}
+        for p in result.asset_pieces:
+            z = by_id[p["zone_id"]]
+            class_areas: dict[str, float | None] = dict.fromkeys(areas)
+            class_areas[area_field(z.class_name)] = p["contour_area_m2"]
+            row(p, z, z.zone_id, z.class_name, class_areas)
     return rows, geoms
+
+
+def _datetime(text: str) -> str | None:
+    """A scan's survey time as GeoPackage DATETIME text (UTC, milliseconds), None when unknown."""
+    if not text:
+        return None
+    return gpkg_sql.timestamp(dt.datetime.fromisoformat(text.replace("Z", "+00:00")))
 
 
 def _real(v: float) -> float | None:
@@ -236,14 +278,15 @@ def _write(con: sqlite3.Connection, result: "RunResult", target: Path, name: str
     asset_layer = {k.lower(): v for k, v in layers.items()}[assets.layer.lower()]
     rows, geoms = findings_rows(result)
     created, added_fields = False, ()
+    fields = findings_fields(result)
     if existing is None:
         layer, created = gpkg_sql.create_feature_table(
-            con, name, FIELDS, "MULTIPOLYGON", asset_layer.srs_id,
+            con, name, fields, "MULTIPOLYGON", asset_layer.srs_id,
             "findings of acoustic non-contact scans (written by overlay)"), True
     else:
         layer = existing
         _check_shape(con, layer, src)
-        added_fields = tuple(gpkg_sql.add_columns(con, layer.table, dict(FIELDS)))
+        added_fields = tuple(gpkg_sql.add_columns(con, layer.table, fields))
     geoms = _into(geoms, result.crs, layer.crs, src)
     scans = {s.scan_id for s in result.scans}
     own = [(fid, sid) for fid, sid in con.execute(
@@ -259,7 +302,17 @@ def _write(con: sqlite3.Connection, result: "RunResult", target: Path, name: str
                     f"({', '.join('?' for _ in chunk)})", chunk)
     added = gpkg_sql.insert_features(con, layer, rows, [_as_multi(g) for g in geoms])
     gpkg_sql.touch_contents(con, layer)
+    style = findings_style(result)
+    gpkg_sql.put_style(con, layer, STYLE_NAME, styles.qml(style), styles.sld(style, layer.table),
+                       "findings by highest class, in the colours of overlay's drawing and report")
     return MergeSummary(target, layer.table, added, len(own), total - len(own), copy, created, added_fields)
+
+
+def findings_style(result: "RunResult") -> styles.LayerStyle:
+    """The findings layer drawn by class in the palette every output shares."""
+    cls = palette.for_site(result.site)
+    return styles.LayerStyle("findings by class", attr="class", categories=styles.class_categories(
+        [(c.name, c.threshold_db, cls[c.name].rgb) for c in result.site.classes]))
 
 
 def _as_multi(g: Any) -> MultiPolygon:

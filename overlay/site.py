@@ -15,6 +15,7 @@ from .bundle import target_names
 from .elements import is_geopackage_file
 from .energy import DEFAULT_PERCENTILE, REFERENCES
 from .merge import KEEP_BACKUPS, check_layer_name
+from .quantities import area_field
 from .plate import aci318_modulus_pa
 from .zones import Concrete
 from .errors import SiteFileError
@@ -292,8 +293,8 @@ def _classes(zt: Fields) -> list[ZoneClass]:
         out.append(ZoneClass(name, c.number("threshold_db", required=True) or 0.0))
         c.reject_unknown()
     names = [c.name for c in out]
-    if len(set(names)) != len(names):
-        raise zt.fail("classes", f"class names must be unique, got {names}")
+    if len({area_field(n) for n in names}) != len(names):
+        raise zt.fail("classes", f"class names must be unique (case and '-'/'_' aside: they name GIS fields), got {names}")
     levels = [c.threshold_db for c in out]
     if levels != sorted(levels) or len(set(levels)) != len(levels):
         raise zt.fail("classes", f"thresholds must rise strictly from class to class, got {levels}")
