@@ -84,10 +84,10 @@ def test_unknown_epsg_exit_4(tmp_path: Path, capsys: pytest.CaptureFixture) -> N
 
 def test_unknown_exporter_names_choices(tmp_path: Path, capsys: pytest.CaptureFixture) -> None:
     _bump_bundle(tmp_path / "S-1")
-    site = write_site(tmp_path, ["S-1"], extra='\n[outputs]\nformats = ["dxf", "shapefile"]\n')
+    site = write_site(tmp_path, ["S-1"], extra='\n[outputs]\nformats = ["dxf", "kml"]\n')
     assert main(["run", str(site), "--out", str(tmp_path / "out")]) == 3
     err = capsys.readouterr().err
-    assert "outputs.formats: unknown exporter 'shapefile'; available: dxf, geojson, gpkg, quantities-csv" in err
+    assert "outputs.formats: unknown exporter 'kml'; available: dxf, geojson, gpkg, quantities-csv, shapefile" in err
     assert _files(tmp_path / "out") == []
 
 
