@@ -279,3 +279,17 @@ def test_shapefile_export_maps_every_field_name(written: dict) -> None:
     assert sorted(zones["fp_len_m"]) == pytest.approx(sorted(gpkg["footprint_length_m"]))
     assert "ISO text" in m["surveyed"]["conversion"]
     assert set(zones["zone_id"]) == set(gpkg["zone_id"])
+
+
+@needs_validator
+def test_every_geopackage_the_demo_writes_passes_the_validator(tmp_path: Path) -> None:
+    from overlay.cli.main import main
+
+    assert main(["demo", "--out", str(tmp_path), "--no-pictures", "-q"]) == 0
+    written = sorted(tmp_path.rglob("*.gpkg"))
+    assert {p.name for p in written} >= {"klo2-soffit.gpkg", "assets.gpkg"}
+    for p in written:
+        assert validate(p) == "", p
+        if HAS_OGRINFO:  # GDAL 3.6 reads every one without a version warning
+            done = subprocess.run(["ogrinfo", "-so", "-al", str(p)], capture_output=True, text=True)
+            assert "partially supported" not in done.stderr, p
