@@ -60,3 +60,33 @@ def defects(zones: Sequence["Zone"], classes: Sequence["ZoneClass"]) -> list[Def
 def area_field(class_name: str) -> str:
     """The field holding a class's contour area: ``area_<class>_m2`` (a '-' in the name becomes '_')."""
     return f"area_{class_name.lower().replace('-', '_')}_m2"
+
+
+def rounded(v: float, nd: int) -> object:
+    """A number for a table a person reads: rounded, and '' when unknown (never 'nan')."""
+    return "" if v != v else round(v, nd)
+
+
+def defect_rows(zones: Sequence["Zone"], classes: Sequence["ZoneClass"], basis: str) -> list[dict[str, object]]:
+    """One row per defect, at the highest class it reaches: what a repair contractor prices.
+
+    Affected area, footprint and volume are the defect's (its lowest-class zone carries the
+    estimated outline); peak frequency and confidence those of its highest-class zone.
+    """
+    rows: list[dict[str, object]] = []
+    for d in defects(zones, classes):
+        z, top = d.lowest, d.top
+        affected = z.outline_area_m2 if basis == "outline" else z.area_m2
+        rows.append({
+            "row_kind": "defect", "element": z.element, "class": d.highest_class, "zone_id": top.zone_id,
+            "defect_id": d.defect_id, "scan_id": z.scan_id, "n_defects": 1, "basis": basis,
+            "contour_area_m2": rounded(d.contour_area_m2(d.highest_class), 4),
+            "outline_area_m2": rounded(z.outline_area_m2, 4), "affected_area_m2": rounded(affected, 4),
+            "footprint_length_m": rounded(z.footprint_length_m, 3), "footprint_width_m": rounded(z.footprint_width_m, 3),
+            "footprint_area_m2": rounded(z.footprint_area_m2, 4), "depth_low_m": rounded(z.depth_low_m, 4),
+            "depth_high_m": rounded(z.depth_high_m, 4), "volume_low_m3": rounded(z.volume_low_m3, 5),
+            "volume_high_m3": rounded(z.volume_high_m3, 5), "peak_hz": rounded(top.peak_hz, 1),
+            "confidence": top.confidence,
+        })
+    order = [c.name for c in classes]
+    return sorted(rows, key=lambda r: (str(r["element"]), -order.index(str(r["class"])), str(r["defect_id"])))

@@ -67,15 +67,26 @@ class Elements:
     id_field: str = "asset_id"
 
 
+SHEETS = ("A0", "A1", "A2", "A3", "A4")
+# lettering heights on paper: 2.5 mm for labels, 1.8 mm for notes — the two smallest nominal heights of
+# ISO 3098-1 (1.8, 2.5, 3.5, 5, 7, 10 … mm; from memory), common drafting practice for what must stay legible
+LABEL_HEIGHT_MM = 2.5
+NOTE_HEIGHT_MM = 1.8
+
+
 @dataclass(frozen=True)
 class DxfStyle:
-    """How zones are drawn: our layer prefix, colours (ACI), text, fill, and an optional base drawing."""
+    """How zones are drawn: our layer prefix, colours (ACI), the sheet and plot scale that size every text,
+    fill, and an optional base drawing."""
 
     base: Path | None = None
     base_unit: str | None = None  # for a base drawing whose $INSUNITS says nothing
     prefix: str = "OVL"
     colours: tuple[tuple[str, int], ...] = ()
-    text_height_m: float = 0.06
+    sheet: str = "A3"
+    plot_scale: int | None = None  # 1:N; None: the smallest usual scale at which the structure fits the sheet
+    label_height_mm: float = LABEL_HEIGHT_MM
+    note_height_mm: float = NOTE_HEIGHT_MM
     text_style: str = "OVL-TEXT"
     font: str = "DejaVuSans.ttf"
     fill: str = "SOLID"
@@ -379,19 +390,32 @@ def _dxf(doc: Fields, path: Path) -> DxfStyle:
     transparency = d.number("fill_transparency", 0.6, minimum=0.0) or 0.0
     if transparency > 1:
         raise d.fail("fill_transparency", f"must lie in 0..1, got {transparency:g}")
+    scale = d.raw("plot_scale")
+    if scale is not None and (isinstance(scale, bool) or not isinstance(scale, int) or not 1 <= scale <= 100000):
+        raise d.fail("plot_scale", f"must be a whole number N for 1:N (1..100000), got {scale!r}")
+    label_mm = d.number("label_height_mm", LABEL_HEIGHT_MM, positive=True) or LABEL_HEIGHT_MM
+    note_mm = d.number("note_height_mm", NOTE_HEIGHT_MM, positive=True) or NOTE_HEIGHT_MM
+    if label_mm < LABEL_HEIGHT_MM or note_mm < NOTE_HEIGHT_MM:
+        raise d.fail("label_height_mm" if label_mm < LABEL_HEIGHT_MM else "note_height_mm",
+                     f"text under {LABEL_HEIGHT_MM:g} mm (labels) or {NOTE_HEIGHT_MM:g} mm (notes) on paper does not "
+                     "stay legible in print")
     style = DxfStyle(
         base=full,
         base_unit=d.choice("base_unit", tuple(UNIT_TO_M), default="m") if d.has("base_unit") else None,
         prefix=prefix,
         colours=tuple(sorted(colours.items())),
-        text_height_m=d.number("text_height_m", 0.06, positive=True) or 0.06,
+        sheet=d.choice("sheet", SHEETS, default="A3"),
+        plot_scale=scale,
+        label_height_mm=label_mm,
+        note_height_mm=note_mm,
         text_style=d.string("text_style", "OVL-TEXT") or "OVL-TEXT",
         font=d.string("font", "DejaVuSans.ttf") or "DejaVuSans.ttf",
         fill=d.string("fill", "SOLID") or "SOLID",
         fill_transparency=transparency,
         reuse_layers=_bool(d, "reuse_layers", False),
     )
-    d.reject_unknown()
+    d.reject_unknown({"text_height_m": "label_height_mm and note_height_mm, heights on paper (text follows the plot "
+                                       "scale)"})
     return style
 
 

@@ -19,12 +19,14 @@ def _snapshot(path: Path) -> dict:
     doc = ezdxf.readfile(path)
     ours = {layer.dxf.name for layer in doc.layers if layer.has_xdata(APPID)}
     msp = [e for e in doc.modelspace() if e.dxf.layer not in ours and not e.has_xdata(APPID)]
+    our_sheets = {lo.block_record_name for lo in doc.layouts if lo.name.startswith("OVL ")}
     return {
         "handles": sorted(e.dxf.handle for e in msp),
         "per_layer": Counter(e.dxf.layer for e in msp),
         "layers": sorted(layer.dxf.name for layer in doc.layers if layer.dxf.name not in ours),
-        "blocks": sorted(b.name for b in doc.blocks if not b.name.startswith("OVL")),
-        "header": {k: str(doc.header[k]) for k in ("$INSUNITS", "$ACADVER", "$MEASUREMENT") if k in doc.header},
+        "blocks": sorted(b.name for b in doc.blocks if not b.name.startswith("OVL") and b.name not in our_sheets),
+        "layouts": sorted(lo.name for lo in doc.layouts if not lo.name.startswith("OVL ")),
+        "header": {k: str(doc.header[k]) for k in ("$INSUNITS", "$ACADVER", "$MEASUREMENT", "$LTSCALE") if k in doc.header},
         "ours": Counter(e.dxf.layer for e in doc.modelspace() if e.dxf.layer in ours),
     }
 
@@ -41,7 +43,7 @@ def test_overlay_keeps_every_owner_entity_and_reruns_replace_only_ours(demo: dic
     first = tmp_path / "first.dxf"
     DxfExporter().write(_with_style(demo["result"], base=base), first)
     a = _snapshot(first)
-    for key in ("handles", "per_layer", "layers", "blocks", "header"):
+    for key in ("handles", "per_layer", "layers", "blocks", "layouts", "header"):
         assert a[key] == before[key], key
     assert base.read_bytes() == base_bytes  # the owner's file is never touched
     assert a["ours"][layer_names("watch")["outline"]] > 0
@@ -49,7 +51,7 @@ def test_overlay_keeps_every_owner_entity_and_reruns_replace_only_ours(demo: dic
     second = tmp_path / "second.dxf"
     DxfExporter().write(_with_style(demo["result"], base=first), second)
     b = _snapshot(second)
-    for key in ("handles", "per_layer", "layers", "blocks", "header"):
+    for key in ("handles", "per_layer", "layers", "blocks", "layouts", "header"):
         assert b[key] == before[key], key
     assert b["ours"] == a["ours"]
     assert not ezdxf.readfile(second).audit().has_errors

@@ -70,3 +70,16 @@ def test_the_documented_site_file_example_reads(demo: dict, tmp_path: Path) -> N
     assert site.name == "Kestrel Lane Overpass" and site.map is not None and site.alignment is not None
     assert [c.name for c in site.classes] == ["watch", "suspect", "probable"]
     assert site.dxf.base is not None and site.merge is not None and site.elements is not None
+
+
+@pytest.mark.parametrize("line, field, fragment", [
+    ("text_height_m = 0.06", "dxf.text_height_m", "use label_height_mm and note_height_mm"),
+    ("label_height_mm = 1.0", "dxf.label_height_mm", "does not stay legible"),  # ISO 3098-1 minimum (from memory)
+    ("plot_scale = 0", "dxf.plot_scale", "whole number N for 1:N"),
+    ('sheet = "A5"', "dxf.sheet", "must be one of 'A0', 'A1', 'A2', 'A3', 'A4'"),
+])
+def test_dxf_sheet_fields_are_checked(tmp_path: Path, line: str, field: str, fragment: str) -> None:
+    write_bundle(tmp_path / "S-1")
+    site = write_site(tmp_path, ["S-1"], extra=f"\n[dxf]\n{line}\n")
+    with pytest.raises(SiteFileError, match=f"{field}: .*{fragment}"):
+        read_site(site)

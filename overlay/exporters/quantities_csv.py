@@ -15,6 +15,8 @@ import csv
 from pathlib import Path
 from typing import TYPE_CHECKING
 
+from ..quantities import defect_rows, rounded
+
 if TYPE_CHECKING:
     from ..pipeline import RunResult
     from ..zones import Zone
@@ -28,8 +30,6 @@ COLUMNS = (
 )
 
 
-def _r(v: float, nd: int) -> object:
-    return "" if v != v else round(v, nd)
 
 
 def affected_area(z: "Zone", basis: str) -> float:
@@ -49,13 +49,14 @@ def quantity_rows(result: "RunResult") -> list[dict[str, object]]:
         rows.append({
             "row_kind": "zone", "element": z.element, "class": z.class_name, "zone_id": z.zone_id,
             "defect_id": z.defect_id, "scan_id": z.scan_id, "n_defects": 1, "basis": basis,
-            "contour_area_m2": _r(z.area_m2, 4), "outline_area_m2": _r(z.outline_area_m2, 4), "affected_area_m2": _r(a, 4),
-            "footprint_length_m": _r(z.footprint_length_m, 3), "footprint_width_m": _r(z.footprint_width_m, 3),
-            "footprint_area_m2": _r(z.footprint_area_m2, 4), "depth_low_m": _r(z.depth_low_m, 4),
-            "depth_high_m": _r(z.depth_high_m, 4), "volume_low_m3": _r(z.volume_low_m3, 5),
-            "volume_high_m3": _r(z.volume_high_m3, 5), "element_area_m2": _r(el, 3),
-            "element_share_pct": _r(100 * a / el, 3), "peak_hz": _r(z.peak_hz, 1), "confidence": z.confidence,
+            "contour_area_m2": rounded(z.area_m2, 4), "outline_area_m2": rounded(z.outline_area_m2, 4), "affected_area_m2": rounded(a, 4),
+            "footprint_length_m": rounded(z.footprint_length_m, 3), "footprint_width_m": rounded(z.footprint_width_m, 3),
+            "footprint_area_m2": rounded(z.footprint_area_m2, 4), "depth_low_m": rounded(z.depth_low_m, 4),
+            "depth_high_m": rounded(z.depth_high_m, 4), "volume_low_m3": rounded(z.volume_low_m3, 5),
+            "volume_high_m3": rounded(z.volume_high_m3, 5), "element_area_m2": rounded(el, 3),
+            "element_share_pct": rounded(100 * a / el, 3), "peak_hz": rounded(z.peak_hz, 1), "confidence": z.confidence,
         })
+    rows.extend(dict.fromkeys(COLUMNS, "") | r for r in defect_rows(result.zones, result.site.classes, basis))
     groups: dict[tuple[str, str], dict[str, "Zone"]] = {}
     for z in zones:
         key = z.defect_id if basis == "outline" else z.zone_id
@@ -66,13 +67,13 @@ def quantity_rows(result: "RunResult") -> list[dict[str, object]]:
         el = areas.get(element, float("nan"))
         rows.append({
             "row_kind": "element_total", "element": element, "class": cls, "zone_id": "", "defect_id": "", "scan_id": "",
-            "n_defects": len(ms), "basis": basis, "contour_area_m2": _r(sum(z.area_m2 for z in ms), 4),
-            "outline_area_m2": _r(sum(z.outline_area_m2 for z in ms), 4), "affected_area_m2": _r(a, 4),
+            "n_defects": len(ms), "basis": basis, "contour_area_m2": rounded(sum(z.area_m2 for z in ms), 4),
+            "outline_area_m2": rounded(sum(z.outline_area_m2 for z in ms), 4), "affected_area_m2": rounded(a, 4),
             "footprint_length_m": "", "footprint_width_m": "",
-            "footprint_area_m2": _r(sum(z.footprint_area_m2 for z in ms), 4),
+            "footprint_area_m2": rounded(sum(z.footprint_area_m2 for z in ms), 4),
             "depth_low_m": "", "depth_high_m": "",
-            "volume_low_m3": _r(sum(z.volume_low_m3 for z in ms), 5), "volume_high_m3": _r(sum(z.volume_high_m3 for z in ms), 5),
-            "element_area_m2": _r(el, 3), "element_share_pct": _r(100 * a / el, 3), "peak_hz": "", "confidence": "",
+            "volume_low_m3": rounded(sum(z.volume_low_m3 for z in ms), 5), "volume_high_m3": rounded(sum(z.volume_high_m3 for z in ms), 5),
+            "element_area_m2": rounded(el, 3), "element_share_pct": rounded(100 * a / el, 3), "peak_hz": "", "confidence": "",
         })
     rows.extend(asset_rows(result))
     # the cautions travel with the quantities: a spreadsheet is a report too
@@ -94,7 +95,7 @@ def asset_rows(result: "RunResult") -> list[dict[str, object]]:
         el = result.element_areas.get(asset, float("nan"))
         row: dict[str, object] = {c: "" for c in COLUMNS}
         row.update({"row_kind": "asset_total", "element": asset, "class": cls, "n_defects": len(parts), "basis": basis,
-                    "affected_area_m2": _r(a, 4), "element_area_m2": _r(el, 3), "element_share_pct": _r(100 * a / el, 3)})
+                    "affected_area_m2": rounded(a, 4), "element_area_m2": rounded(el, 3), "element_share_pct": rounded(100 * a / el, 3)})
         out.append(row)
     return out
 
