@@ -82,8 +82,14 @@ def _unite(parts: list[Zone], site: "Site", unit_m: float) -> Zone:
     z.perimeter_m = contour.length * unit_m
     z.n_points = int(sum(p.n_points for p in parts))
     z.ver_max_db = max(p.ver_max_db for p in parts)
-    for attr in ("ver_mean_db", "peak_hz", "peak_spread", "conf_support", "conf_contrast", "conf_coherence", "conf_quality"):
+    for attr in ("ver_mean_db", "peak_hz", "peak_spread", "conf_support", "conf_contrast", "conf_coherence", "conf_quality",
+                 "conf_outline"):
         setattr(z, attr, mean(attr))
+    # the united outline is the model's only where every part's was
+    z.outline_basis = "model" if all(p.outline_basis == "model" for p in parts) else "contour"
+    shapes = {p.outline_shape for p in parts}
+    z.outline_shape = shapes.pop() if len(shapes) == 1 and z.outline_basis == "model" else ""
+    z.outline_misfit = max((p.outline_misfit for p in parts if p.outline_misfit == p.outline_misfit), default=float("nan"))
     z.confidence = round(1.0 - float(np.prod([1.0 - p.confidence for p in parts])), 4)
     z.outline_area_m2 = defect.area * u2
     z.depth_low_m = min(p.depth_low_m for p in parts)

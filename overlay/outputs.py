@@ -110,6 +110,8 @@ def _picture_tasks(result: "RunResult", dxf_path: Path | None) -> list[tuple[str
     tasks = [("site-map", "site", -1, -1)]
     for i, s in enumerate(result.scans):
         tasks.append((f"scan-{s.scan_id}", "scan", i, -1))
+        if s.reference is not None and s.reference.level_db is not None:
+            tasks.append((f"field-{s.scan_id}", "field", i, -1))
         tasks += [(f"zone-{z.zone_id}", "zone", i, k) for k, z in enumerate(s.zones)]
     return tasks + ([("dxf-preview", "dxf", -1, -1)] if dxf_path is not None else [])
 
@@ -136,6 +138,8 @@ def _draw(task: tuple[str, str, int, int]) -> bytes:
         return pictures.site_map(result, pictures.drawing_lines(base) if base else None)
     if kind == "scan":
         return pictures.scan_preview(result, result.scans[i])
+    if kind == "field":
+        return pictures.field_map(result, result.scans[i])
     if kind == "zone":
         return pictures.zone_sheet(result, result.scans[i], result.scans[i].zones[k])
     return pictures.dxf_preview(dxf_path)

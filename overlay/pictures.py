@@ -147,6 +147,36 @@ def scan_preview(result: "RunResult", scan: "ScanResult") -> bytes:
     return _png(fig)
 
 
+def field_map(result: "RunResult", scan: "ScanResult") -> bytes:
+    """The sound field a scan's VER is measured against (its reference, dB), beside which the VER map
+    reads: where the incident level was strong or weak, and how much it varied."""
+    ref = scan.reference
+    assert ref is not None and ref.level_db is not None
+    fig, ax = plt.subplots(figsize=PREVIEW_SIZE)
+    fig.subplots_adjust(**MARGINS["preview"])
+    xy = scan.point_xy
+    ok = scan.valid & np.isfinite(ref.level_db)
+    level = ref.level_db[ok] - np.nanmedian(ref.level_db[ok])
+    sc = ax.tripcolor(_triangulation(xy[ok]), level, cmap="magma", shading="gouraud")
+    fig.colorbar(sc, ax=ax, label="reference level against its median (dB)", shrink=0.85)
+    cs = ax.tricontour(_triangulation(xy[ok]), level, levels=np.arange(np.floor(level.min()), level.max() + 1, 1.0),
+                       colors="white", linewidths=0.6)
+    ax.clabel(cs, fmt="%g dB", fontsize=6)
+    _rings(ax, scan.extent, color="0.3", lw=0.8, ls=":")
+    for z in scan.zones:
+        if z.defect_id == z.zone_id:
+            _rings(ax, z.contour, color="white", lw=1.2)
+    ax.set_aspect("equal")
+    ax.margins(0.12)
+    ax.set_xlabel(f"drawing x ({result.site.drawing_unit})")
+    ax.set_ylabel(f"drawing y ({result.site.drawing_unit})")
+    ax.set_title(f"scan {scan.scan_id} — sound field: spans {ref.field_span_db:.1f} dB, scatter "
+                 f"{ref.field_scatter_db:.1f} dB; VER is measured against it", fontsize=10)
+    _scale_bar(ax, result.unit_m)
+    _north(ax, result)
+    return _png(fig)
+
+
 def zone_sheet(result: "RunResult", scan: "ScanResult", zone: "Zone") -> bytes:
     """One zone: its averaged spectrum against the healthy reference, the band and the peak; and the
     histogram of per-point peak frequencies."""

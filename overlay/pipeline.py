@@ -7,6 +7,7 @@ data between them.  Nothing here writes a file.
 from __future__ import annotations
 
 import datetime as dt
+import math
 import warnings
 from dataclasses import dataclass, field
 from typing import Callable
@@ -34,11 +35,13 @@ from .mosaic import mosaic_zones
 from .registration import TargetResult, register
 from .site import SCALE_RANGE, ScanEntry, Site
 from .spectra import band_psd_rows, given_psd_rows, given_spectra, parabolic_peak, records_spectra
+from .outline import MISFIT_MAX, fit_plate
 from .zones import (
     Zone,
     confidence_factors,
     defect_outline,
     depth_range,
+    outline_confidence,
     order_key,
     parent_finder,
     point_stats,
@@ -221,8 +224,9 @@ def process_scan(
         if not valid.any():
             raise SignalError("no valid point in the scan (all flagged, non-finite or below the quality floors)", source=src)
         region = healthy_mask(scan, entry, point_xy) if site.reference == "region" else None
-        reference = reference_energy(energy, valid, site.reference, site.percentile, region, source=src)
-        ver = ver_db(energy, reference.energy)
+        reference = reference_energy(energy, valid, site.reference, site.percentile, region, source=src,
+                                     xy_m=point_xy * UNIT_TO_M[site.drawing_unit])
+        ver = ver_db(energy, reference.at_points())
         bad = valid & ~np.isfinite(ver)
         reason[bad] = "zero energy"
         valid &= np.isfinite(ver)
@@ -249,7 +253,8 @@ def process_scan(
             zone = _build_zone(f"{scan.scan_id}.{zc.name}.{k:02d}", scan.scan_id, element, zc.name, zc.threshold_db,
                                contour, surveyed, point_xy, ver, peak, snr, valid, spacing_d, extent, u, zone_psd)
             parent = find_parent(contour)
-            _attach_repair(zone, parent, site, extent, u)
+            others = shapely.union_all([c for j, c in enumerate(contours) if j != k - 1]) if ci == 0 else None
+            _attach_repair(zone, parent, site, extent, u, (point_xy, ver, valid, others))
             built.append(zone)
         if ci == 0:
             find_parent = parent_finder(built)
@@ -374,19 +379,38 @@ def _build_zone(zone_id: str, scan_id: str, element: str, cls: str, threshold: f
     )
 
 
-def _attach_repair(zone: Zone, parent: Zone | None, site: Site, extent: Polygon, u: float) -> None:
+def _attach_repair(zone: Zone, parent: Zone | None, site: Site, extent: Polygon, u: float,
+                   points: tuple[np.ndarray, np.ndarray, np.ndarray, object]) -> None:
     """Defect outline, depth, repair footprint and volume: a zone of the lowest class estimates its
-    defect; a nested zone shares the defect of the lowest-class zone around it."""
+    defect — the fitted plate where the model explains the VER around it, its own contour where
+    not; a nested zone shares the defect of the lowest-class zone around it."""
     if parent is None:
-        outline, _ = defect_outline(zone.contour, zone.ver_max_db, zone.threshold_db)
+        xy, ver, valid, others = points
+        _, scale = defect_outline(zone.contour, zone.ver_max_db, zone.threshold_db)
+        fit = fit_plate(zone.contour, xy, ver, valid, scale, zone.ver_max_db, others)  # type: ignore[arg-type]
+        if fit.plate is not None and fit.misfit <= MISFIT_MAX:
+            outline, shape, ratio = fit.plate.polygon(), fit.plate.shape, fit.plate.b / fit.plate.a
+            zone.outline_basis, zone.outline_shape = "model", fit.plate.shape
+        else:
+            outline, shape, ratio = zone.contour, "ellipse", 1.0
+            zone.outline_basis, zone.outline_shape = "contour", ""
         outline = outline.intersection(extent) if not extent.is_empty else outline
+        if outline.geom_type != "Polygon":
+            outline = max(shapely.get_parts(outline), key=lambda g: g.area) if not outline.is_empty else zone.contour
         zone.defect, zone.defect_id = outline, zone.zone_id
+        zone.outline_misfit = round(fit.misfit, 3) if math.isfinite(fit.misfit) else float("nan")
+        zone.conf_outline = round(outline_confidence(fit.misfit), 4)
         zone.outline_area_m2 = outline.area * u * u
         k = zone.outline_area_m2 / zone.area_m2
-        zone.depth_low_m, zone.depth_high_m = depth_range(zone.peak_hz, zone.area_low_m2 * k, zone.area_high_m2 * k, site.concrete)
+        zone.depth_low_m, zone.depth_high_m = depth_range(zone.peak_hz, zone.area_low_m2 * k, zone.area_high_m2 * k,
+                                                          site.concrete, shape, ratio)
     else:
         zone.defect, zone.defect_id, zone.outline_area_m2 = parent.defect, parent.defect_id, parent.outline_area_m2
         zone.depth_low_m, zone.depth_high_m = parent.depth_low_m, parent.depth_high_m
+        zone.outline_basis, zone.outline_shape = parent.outline_basis, parent.outline_shape
+        zone.outline_misfit = parent.outline_misfit
+        zone.conf_outline = parent.conf_outline
+    zone.confidence = round(zone.confidence * zone.conf_outline, 4)
     basis = zone.defect if site.basis == "outline" else zone.contour
     rect, length, width = repair_footprint(basis, site.margin_m / u, site.footprint)
     zone.footprint = rect

@@ -91,6 +91,8 @@ def site_report(result: "RunResult", images: dict[str, bytes]) -> str:
                   + esc("\n".join(s.fit.report(unit))) + "</pre>"]
         if f"scan-{s.scan_id}" in images:
             parts.append(_img(images[f"scan-{s.scan_id}"], f"VER map of scan {s.scan_id}"))
+        if f"field-{s.scan_id}" in images:
+            parts.append(_img(images[f"field-{s.scan_id}"], f"sound field of scan {s.scan_id}, the reference of its VER"))
         for z in s.zones:
             if f"zone-{z.zone_id}" in images:
                 parts.append(_img(images[f"zone-{z.zone_id}"], f"spectrum of zone {z.zone_id}"))

@@ -139,7 +139,7 @@ class Site:
     tolerance_m: float = TOLERANCE_M
     accept_misfit: bool = False
     model: str = "auto"
-    reference: str = "percentile"
+    reference: str = "auto"
     percentile: float = DEFAULT_PERCENTILE
     incidence_correction: bool = True
     min_signal_level: float = 0.0
@@ -180,7 +180,7 @@ def read_site(path: str | Path) -> Site:
     model = reg.choice("model", MODEL_CHOICES, default="auto")
 
     en = _table(doc, "energy")
-    reference = en.choice("reference", REFERENCES, default="percentile")
+    reference = en.choice("reference", REFERENCES, default="auto")
     percentile = en.number("percentile", DEFAULT_PERCENTILE, minimum=0.0) or 0.0
     if percentile > 100:
         raise en.fail("percentile", f"must lie in 0..100, got {percentile:g}")

@@ -28,7 +28,8 @@ import shapely
 import shapely.affinity
 from shapely.geometry import Polygon
 
-from .plate import clamped_lambda, clamped_mode_shape, plate_thickness, simply_supported_lambda
+from .outline import clamped_lambda2_eq, simply_supported_lambda2_eq
+from .plate import clamped_mode_shape, plate_thickness
 
 SUPPORT_POINTS = 4.0
 CONTRAST_DB = 3.0
@@ -41,7 +42,8 @@ ZONE_FIELDS = (
     "area_m2", "area_low_m2", "area_high_m2", "perimeter_m", "outline_area_m2",
     "n_points", "ver_max_db", "ver_mean_db", "peak_hz", "peak_spread", "depth_low_m", "depth_high_m",
     "footprint_area_m2", "footprint_length_m", "footprint_width_m", "volume_low_m3", "volume_high_m3",
-    "confidence", "conf_support", "conf_contrast", "conf_coherence", "conf_quality",
+    "outline_basis", "outline_shape", "outline_misfit",
+    "confidence", "conf_support", "conf_contrast", "conf_coherence", "conf_quality", "conf_outline",
     "station_m", "offset_m", "station_from_m", "station_to_m", "surveyed", "provenance",
 )
 
@@ -99,6 +101,10 @@ class Zone:
     offset_m: float = float("nan")
     station_from_m: float = float("nan")
     station_to_m: float = float("nan")
+    outline_basis: str = ""  # "model": the fitted plate; "contour": the model did not fit, the class contour
+    outline_shape: str = ""  # "ellipse" or "rectangle" with the model, "" with the contour
+    outline_misfit: float = float("nan")  # plate model's RMS residual over the sound scatter (≤ 2: model kept)
+    conf_outline: float = 1.0
     provenance: str = ""  # the per-scan zones a mosaic zone was united from
     spectrum: np.ndarray | None = None  # the zone's averaged band PSD, (m/s)^2/Hz
 
@@ -176,19 +182,28 @@ def defect_outline(contour: Polygon, ver_max_db: float, threshold_db: float) -> 
     return shapely.affinity.scale(contour, scale, scale, origin=c), scale
 
 
-def depth_range(peak_hz: float, area_low_m2: float, area_high_m2: float, concrete: Concrete) -> tuple[float, float]:
+def depth_range(peak_hz: float, area_low_m2: float, area_high_m2: float, concrete: Concrete,
+                shape: str = "ellipse", ratio: float = 1.0) -> tuple[float, float]:
     """Cover thickness over the defect (m), low to high.
 
-    Low: clamped edge (λ² = 10.2158) on the smaller area; high: simply
-    supported edge (λ² for ν) on the larger area.  Order of magnitude only.
+    Low: clamped edge on the smaller area; high: simply supported edge on the larger area — for
+    the plate's outline (a circle by default: λ² = 10.2158 clamped; the fitted ellipse or
+    rectangle of overlay.outline otherwise).  Order of magnitude only.
     """
     if not (peak_hz > 0 and area_low_m2 > 0 and area_high_m2 > 0):
         return float("nan"), float("nan")
     c = concrete
-    lo = plate_thickness(peak_hz, math.sqrt(area_low_m2 / math.pi), c.modulus_pa, c.density, c.poisson, clamped_lambda() ** 2)
+    lo = plate_thickness(peak_hz, math.sqrt(area_low_m2 / math.pi), c.modulus_pa, c.density, c.poisson,
+                         clamped_lambda2_eq(shape, ratio))
     hi = plate_thickness(peak_hz, math.sqrt(area_high_m2 / math.pi), c.modulus_pa, c.density, c.poisson,
-                         simply_supported_lambda(c.poisson) ** 2)
+                         simply_supported_lambda2_eq(shape, ratio, c.poisson))
     return lo, hi
+
+
+def outline_confidence(misfit: float) -> float:
+    """The outline's weight in the confidence: 1 while the plate model explains the VER to within its
+    scatter (misfit ≤ 1), falling towards 0.5 as the misfit grows (0.68 at 2, 0.52 at 5)."""
+    return 0.5 + 0.5 * math.exp(-max(misfit - 1.0, 0.0)) if misfit == misfit else 0.5
 
 
 def repair_footprint(outline: Polygon, margin: float, mode: str = "aligned") -> tuple[Polygon, float, float]:

@@ -118,19 +118,20 @@ def _lowest_zone(demo: dict, d: dict):
 
 
 def test_defect_outline_beats_the_contour_and_matches_truth(demo: dict) -> None:
-    # issue 4: outline areas within 10 % of the truth outlines for the detectable defects, and closer
-    # to the true footprint than the threshold contour — so quantities use the outline (basis)
+    # outline areas within 2 % of the truth outlines for the detectable defects (the demo is made with the
+    # model's own physics, so this checks the fit, not the model), and closer to the true footprint than
+    # the threshold contour — so quantities use the outline (basis); the model must be the basis here
     assert demo["result"].site.basis == "outline"
     for d in _defects(demo):
         if not d["detectable"]:
             continue
         z = _lowest_zone(demo, d)
         truth = Polygon(d["outline"])
-        assert z.outline_area_m2 == pytest.approx(d["area_m2"], rel=0.10), d["id"]
+        assert z.outline_basis == "model" and z.outline_area_m2 == pytest.approx(d["area_m2"], rel=0.02), d["id"]
         assert abs(z.outline_area_m2 - d["area_m2"]) < abs(z.area_m2 - d["area_m2"])
         iou_outline = z.defect.intersection(truth).area / z.defect.union(truth).area
         iou_contour = z.contour.intersection(truth).area / z.contour.union(truth).area
-        assert iou_outline > iou_contour and iou_outline > 0.9
+        assert iou_outline > iou_contour and iou_outline > 0.97
 
 
 def test_depth_ranges_contain_the_truth_depth(demo: dict) -> None:

@@ -48,7 +48,7 @@ def test_no_valid_point_is_an_error() -> None:
 
 
 def test_unknown_method_names_choices() -> None:
-    with pytest.raises(SignalError, match="choose from percentile, minimum"):
+    with pytest.raises(SignalError, match="choose from auto, percentile, trend, minimum"):
         reference_energy(np.ones(5), np.ones(5, dtype=bool), "mean")
 
 

@@ -18,7 +18,7 @@ def test_defaults_and_glob(tmp_path: Path) -> None:
     site = read_site(write_site(tmp_path, ["scans/S-*"]))
     assert [e.bundle.name for e in site.scans] == ["S-1", "S-2"]
     assert [c.name for c in site.classes] == ["watch", "suspect", "probable"]
-    assert site.reference == "percentile" and site.percentile == 10
+    assert site.reference == "auto" and site.percentile == 10
     assert site.map is None
 
 

@@ -161,7 +161,14 @@ FIELD_DOCS: dict[str, dict[str, tuple[str, str]]] = {  # field: (title a GIS sho
         "area_low_m2": ("Contour area, low (m²)", "contour shrunk by half a grid spacing, m2"),
         "area_high_m2": ("Contour area, high (m²)", "contour grown by half a grid spacing, m2"),
         "perimeter_m": ("Perimeter (m)", "perimeter of the class contour, m"),
-        "outline_area_m2": ("Defect outline area (m²)", "estimated defect outline (plate mode-shape model), m2"),
+        "outline_area_m2": ("Defect outline area (m²)", "estimated defect outline: the fitted plate, or the contour "
+                            "where the plate model does not fit (outline_basis), m2"),
+        "outline_basis": ("Outline from", "model: the fitted plate's outline; contour: the model did not explain the "
+                          "VER (misfit > 2), the class contour instead"),
+        "outline_shape": ("Plate shape", "ellipse or rectangle: the fitted plate (empty with the contour)"),
+        "outline_misfit": ("Plate misfit", "RMS residual of the plate model inside it over the sound scatter around "
+                           "it; 1 is as good as the noise allows, above 2 the model is not used"),
+        "conf_outline": ("Outline factor (0-1)", "the outline's weight in the confidence: 1 at misfit 1, towards 0.5"),
         "n_points": ("Points inside", "valid measurement points inside the contour"),
         "ver_max_db": ("Largest VER (dB)", "largest vibration energy ratio inside, dB"),
         "ver_mean_db": ("Mean VER (dB)", "mean vibration energy ratio inside, dB"),
@@ -191,6 +198,9 @@ FIELD_DOCS: dict[str, dict[str, tuple[str, str]]] = {  # field: (title a GIS sho
     },
     "runs": {
         "run_started": ("Run started (UTC)", "when the run started, UTC"),
+        "field_span_db": ("Sound field span (dB)", "how much the fitted sound-concrete field varies over the scan, dB; "
+                          "above 1 dB the reference 'auto' measures against the local field"),
+        "field_scatter_db": ("Sound scatter (dB)", "robust spread of the sound points around the fitted field, dB"),
         "fit_passed": ("Fit passed", "true when every target residual is within the tolerance"),
         "fit_override": ("Misfit accepted", "true when a failed fit was accepted by override"),
         "fit_tolerance_m": ("Fit tolerance (m)", "worst target residual allowed, metres on the structure"),
@@ -250,6 +260,8 @@ def _runs(result: "RunResult") -> pd.DataFrame:
             "reference_method": s.reference.method if s.reference else "given ver_db",
             "reference_energy": s.reference.energy if s.reference else np.nan,
             "reference_detail": s.reference.describe() if s.reference else "",
+            "field_span_db": s.reference.field_span_db if s.reference else np.nan,
+            "field_scatter_db": s.reference.field_scatter_db if s.reference else np.nan,
             "incidence": s.incidence,
             "fit_model": s.fit.model,
             "fit_frame": s.fit_describe,
