@@ -265,3 +265,30 @@ def test_a_band_narrower_than_three_bins_is_refused() -> None:
     with pytest.raises(SignalError, match="holds 1 frequency bin.*at least 3") as info:
         records_spectra(x, _gate(512), (400.0, 410.0))
     assert info.value.exit_code == 3
+
+
+@pytest.mark.parametrize("width", [1, 2, 3, 4, 7, 8, 64, 65])
+def test_noise_floor_median_equals_numpy_median_for_odd_and_even_widths(width: int) -> None:
+    # the SNR's noise floor uses a partition-based median; numpy.median is the reference, ties included
+    from overlay.spectra import _median
+
+    rng = np.random.default_rng(width)
+    p = rng.exponential(1.0, (5, width))
+    p[0] = np.round(p[0], 1)  # ties
+    np.testing.assert_allclose(_median(p), np.median(p, axis=-1), rtol=0, atol=0)
+
+
+def test_a_record_whose_power_overflows_float32_is_invalid_not_infinite() -> None:
+    # IEEE 754 single precision: the largest finite float32 is (2 − 2⁻²³)·2¹²⁷ ≈ 3.4028235e38.  A record
+    # of 1e19 m/s is finite as float32, but its power (~1e38 per bin and more in the band sum) is not:
+    # that point must be marked invalid, never carry an inf energy into the reference
+    assert np.finfo(np.float32).max == pytest.approx(3.4028235e38, rel=1e-7)
+    rng = np.random.default_rng(3)
+    x = rng.normal(0, 1e-3, (3, 512)).astype(np.float32)
+    x[1] = rng.normal(0, 1e19, 512).astype(np.float32)
+    assert np.isfinite(x).all()
+    sp = records_spectra(x, _gate(512), (400.0, 8000.0))
+    assert sp.finite.tolist() == [True, False, True]
+    assert np.isnan(sp.energy[1]) and np.isfinite(sp.energy[[0, 2]]).all()
+    x[1] = rng.normal(0, 1e12, 512).astype(np.float32)  # large but representable: a valid point
+    assert records_spectra(x, _gate(512), (400.0, 8000.0)).finite.all()

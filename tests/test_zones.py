@@ -22,6 +22,7 @@ from overlay.zones import (
     defect_outline,
     depth_range,
     peak_spread,
+    point_stats,
     repair_footprint,
 )
 
@@ -179,3 +180,28 @@ def test_depth_range_contains_the_plate_that_made_the_frequency() -> None:
     assert lo == pytest.approx(0.05, rel=1e-9)  # the clamped end recovers it exactly
     # the simply supported end: thickness scales with λ²_clamped/λ²_ss = 10.2158/4.7826 (Leissa)
     assert hi / lo == pytest.approx(10.2158 / 4.7826, rel=1e-3)
+
+
+def test_zone_statistics_leave_dropouts_out() -> None:
+    # a hand-worked 4 × 4 grid at 0.1 m: the zone (a square around the middle four points) holds points
+    # of VER 8, 10, 12 and 14 dB with peaks 1000–1300 Hz, plus a dropout of VER 40 dB / 9000 Hz that must
+    # count for nothing: n = 4, max 14, mean 11, peak median 1150, the dropout lowers the valid share only
+    rr, cc = np.mgrid[0:4, 0:4]
+    xy = np.column_stack([cc.ravel(), rr.ravel()]) * 0.1
+    ver = np.zeros(16)
+    peak = np.full(16, 500.0)
+    snr = np.full(16, 20.0)
+    usable = np.ones(16, dtype=bool)
+    for k, (v, f) in zip((5, 6, 9, 10), ((8.0, 1000.0), (10.0, 1100.0), (12.0, 1200.0), (14.0, 1300.0))):
+        ver[k], peak[k] = v, f
+    ver[11], peak[11], snr[11], usable[11] = 40.0, 9000.0, -5.0, False  # a dropout inside the zone
+    zone = shapely.union(box(0.05, 0.05, 0.25, 0.25), box(0.25, 0.15, 0.35, 0.25))  # points 5, 6, 9, 10 and 11
+    st_ = point_stats(zone, xy, ver, peak, snr, usable, 0.1)
+    assert st_["n_points"] == 4
+    assert st_["ver_max_db"] == 14.0 and st_["ver_mean_db"] == pytest.approx(11.0)
+    assert st_["peak_hz"] == pytest.approx(1150.0)  # median of 1000, 1100, 1200, 1300
+    assert st_["snr_db"] == pytest.approx(20.0)
+    assert st_["inside"].sum() == 4 and not st_["inside"][11]
+    # valid share: points within one spacing of the zone; only the dropout is not usable
+    near = shapely.contains_xy(zone.buffer(0.1), xy[:, 0], xy[:, 1])
+    assert st_["valid_share"] == pytest.approx((near.sum() - 1) / near.sum())
