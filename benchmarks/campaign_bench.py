@@ -48,12 +48,18 @@ def write_scan(folder: Path, k: int, rng: np.random.Generator) -> None:
         f'[band]\nhz = [400.0, 8000.0]\n{targets}')
 
 
-def write_site(root: Path, n: int) -> Path:
+def write_site(root: Path, n: int, per_element: int | None = None, extra: str = "") -> Path:
+    """``n`` scans; with ``per_element`` they are named to elements ``SPAN-00`` … that many to each."""
     rng = np.random.default_rng(7)
     for k in range(n):
         write_scan(root / "scans" / f"B-{k:04d}", k, rng)
+    if per_element is None:
+        entries = '[[scans]]\nbundle = "scans/B-*"\n'
+    else:
+        entries = "".join(f'[[scans]]\nbundle = "scans/B-{k:04d}"\nelement = "SPAN-{k // per_element:02d}"\n'
+                          for k in range(n))
     site = root / "site.toml"
-    site.write_text('format = "overlay-site/1"\n[site]\nname = "bench"\n[[scans]]\nbundle = "scans/B-*"\n')
+    site.write_text('format = "overlay-site/1"\n[site]\nname = "bench"\n' + extra + entries)
     return site
 
 

@@ -1,4 +1,4 @@
-"""overlay: suspect zones from acoustic laser-vibrometer scans onto drawings, quantities and GIS layers."""
+"""overlay: screening zones from acoustic laser-vibrometer scans onto drawings, quantities and GIS layers."""
 
 from importlib.metadata import PackageNotFoundError, version
 

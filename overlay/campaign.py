@@ -39,6 +39,7 @@ class Failure:
     bundle: Path
     message: str
     exit_code: int
+    details: tuple[str, ...] = ()  # the evidence below the one line (a failed fit's residual table)
 
 
 @dataclass
@@ -123,8 +124,8 @@ def _work(entry: ScanEntry, site: Site, progress: Callable[[int], None] | None =
             result, failure = scan_entry(entry, site, progress), None
         except OverlayError as exc:
             if exc.source is None:  # a stage that does not know the file: name the bundle
-                exc = type(exc)(exc.problem, source=entry.bundle, field=exc.field)
-            result, failure = None, Failure(entry.bundle, exc.line(), exc.exit_code)
+                exc = type(exc)(exc.problem, source=entry.bundle, field=exc.field, details=exc.details)
+            result, failure = None, Failure(entry.bundle, exc.line(), exc.exit_code, exc.details)
         except Exception as exc:  # a bug in one scan must not lose the others
             result, failure = None, Failure(entry.bundle, f"unexpected {type(exc).__name__}: {exc}", 1)
     return result, failure, [str(w.message) for w in seen]
@@ -292,12 +293,13 @@ def summary(c: CampaignResult) -> str:
     lines = [f"scans: {len(c.computed)} computed, {len(c.cached)} from the cache, {len(c.failures)} failed "
              f"({c.seconds:.1f} s)"]
     if c.result is not None:
-        per: dict[str, list[float]] = {}
-        for z in c.result.zones:
-            per.setdefault(z.class_name, []).append(z.area_m2)
-        for zc in c.result.site.classes:
-            a = per.get(zc.name, [])
-            lines.append(f"  {zc.name:<10} {len(a):4d} zone(s) {sum(a):9.3f} m2 (class contours)")
+        from .quantities import defect_rows
+
+        rows = defect_rows(c.result.zones, c.result.site.classes, c.result.site.basis)
+        lines.append(f"defects, each once at the highest class it reaches (affected area on the {c.result.site.basis}):")
+        for zc in reversed(c.result.site.classes):
+            mine = [float(r["affected_area_m2"] or 0.0) for r in rows if r["class"] == zc.name]
+            lines.append(f"  {zc.name:<10} {len(mine):4d} defect(s) {sum(mine):9.4f} m2")
     if c.failures:
         lines.append("failed scans:")
         width = max(len(str(f.bundle)) for f in c.failures)
@@ -307,6 +309,6 @@ def summary(c: CampaignResult) -> str:
 
 
 def _as_error(f: Failure) -> OverlayError:
-    err = OverlayError(f.message)
+    err = OverlayError(f.message, details=f.details)
     err.exit_code = f.exit_code
     return err

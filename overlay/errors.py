@@ -8,6 +8,7 @@ so library callers can catch ``ValueError`` / ``OSError`` as usual.
 from __future__ import annotations
 
 from pathlib import Path
+from typing import Sequence
 
 EXIT_OK = 0
 EXIT_UNEXPECTED = 1
@@ -22,10 +23,12 @@ class OverlayError(Exception):
 
     exit_code = EXIT_UNEXPECTED
 
-    def __init__(self, problem: str, *, source: str | Path | None = None, field: str | None = None):
+    def __init__(self, problem: str, *, source: str | Path | None = None, field: str | None = None,
+                 details: Sequence[str] = ()):
         self.problem = problem
         self.source = None if source is None else str(source)
         self.field = field
+        self.details = tuple(details)  # the evidence behind the line (a fit's residual table), printed below it
         super().__init__(self.line())
 
     def line(self) -> str:

@@ -54,7 +54,7 @@ class Fit:
         params = ", ".join(f"{k} {v:.9g}" for k, v in self.transform.params().items())
         name, worst = self.worst
         lines = [f"model {self.model}, {len(self.names)} points, RMS {self.rms:.4f} {unit}, largest {worst:.4f} ({name})",
-                 f"  parameters: {params}"]
+                 f"  raw parameters (drawing units per working unit): {params}"]
         for n, (dx, dy), e, lo in zip(self.names, self.residuals, self.errors, self.loo):
             lo_s = f"{lo:.4f}" if np.isfinite(lo) else "  n/a "
             lines.append(f"  {n:<12} dx {dx:+.4f}  dy {dy:+.4f}  |r| {e:.4f}  leave-one-out {lo_s} {unit}")
@@ -193,6 +193,6 @@ def check_fit(fit: Fit, tolerance: float, unit: str, *, accept: bool = False, so
     msg = f"{fit.model} fit misses {name} by {err:.4f} {unit} (tolerance {tolerance:g} {unit}, RMS {fit.rms:.4f})"
     if not accept:
         raise RegistrationError(msg + "; check the target coordinates or accept the misfit explicitly", source=source,
-                                field="targets")
+                                field="targets", details=fit.report(unit))
     warnings.warn(f"{source + ': ' if source else ''}{msg}; accepted by override", RegistrationWarning, stacklevel=2)
     return False

@@ -100,7 +100,7 @@ def _unite(parts: list[Zone], site: "Site", unit_m: float) -> Zone:
     z.footprint_length_m, z.footprint_width_m = length * unit_m, width * unit_m
     z.volume_low_m3 = z.footprint_area_m2 * z.depth_low_m
     z.volume_high_m3 = z.footprint_area_m2 * z.depth_high_m
-    z.spectrum = None
+    z.spectrum = max(parts, key=lambda p: p.n_points).spectrum  # the best-measured part's spectrum, for pictures
     return z
 
 

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import errno
 import os
+import re
 import tempfile
 import warnings
 from concurrent.futures import ProcessPoolExecutor
@@ -105,15 +106,30 @@ def select_exporters(formats: Sequence[str], source: Path | None = None) -> dict
     return chosen
 
 
-def _picture_tasks(result: "RunResult", dxf_path: Path | None) -> list[tuple[str, str, int, int]]:
-    """(name, kind, scan index, zone index) of every picture, in report order."""
-    tasks = [("site-map", "site", -1, -1)]
-    for i, s in enumerate(result.scans):
-        tasks.append((f"scan-{s.scan_id}", "scan", i, -1))
+def file_stem(text: str) -> str:
+    """A name safe in a file name (element ids are free text)."""
+    return re.sub(r"[^A-Za-z0-9._+-]", "_", text)
+
+
+def _picture_tasks(result: "RunResult", dxf_path: Path | None) -> list[tuple[str, str, str]]:
+    """(name, kind, key) of every picture, in report order: the site, each element with defects, each
+    scan (and its sound field where VER is measured against it), each defect, the DXF.  Drawn from the
+    site's final zones — after the mosaic — so every id and number matches the tables."""
+    from .quantities import defects
+
+    tasks = [("site-map", "site", "")]
+    tasks += [(f"element-{file_stem(e)}", "element", e) for e in elements_with_zones(result)]
+    for s in result.scans:
+        tasks.append((f"scan-{s.scan_id}", "scan", s.scan_id))
         if s.reference is not None and s.reference.level_db is not None:
-            tasks.append((f"field-{s.scan_id}", "field", i, -1))
-        tasks += [(f"zone-{z.zone_id}", "zone", i, k) for k, z in enumerate(s.zones)]
-    return tasks + ([("dxf-preview", "dxf", -1, -1)] if dxf_path is not None else [])
+            tasks.append((f"field-{s.scan_id}", "field", s.scan_id))
+    tasks += [(f"defect-{file_stem(d.defect_id)}", "defect", d.defect_id)
+              for d in defects(result.zones, result.site.classes)]
+    return tasks + ([("dxf-preview", "dxf", "")] if dxf_path is not None else [])
+
+
+def elements_with_zones(result: "RunResult") -> list[str]:
+    return sorted({z.element for z in result.zones if z.element})
 
 
 def picture_names(result: "RunResult", with_dxf: bool) -> list[str]:
@@ -125,23 +141,30 @@ _SHARED: dict[str, Any] = {}  # what a picture worker process draws from (set on
 
 
 def _share(result: "RunResult", dxf_path: Path | None) -> None:
+    _SHARED.clear()
     _SHARED.update(result=result, dxf=dxf_path)
 
 
-def _draw(task: tuple[str, str, int, int]) -> bytes:
+def _draw(task: tuple[str, str, str]) -> bytes:
     from . import pictures
+    from .quantities import defects
 
-    _, kind, i, k = task
+    _, kind, key = task
     result, dxf_path = _SHARED["result"], _SHARED["dxf"]
-    if kind == "site":
+    if kind in ("site", "element") and "lines" not in _SHARED:
         base = result.site.dxf.base
-        return pictures.site_map(result, pictures.drawing_lines(base) if base else None)
-    if kind == "scan":
-        return pictures.scan_preview(result, result.scans[i])
-    if kind == "field":
-        return pictures.field_map(result, result.scans[i])
-    if kind == "zone":
-        return pictures.zone_sheet(result, result.scans[i], result.scans[i].zones[k])
+        _SHARED["lines"] = pictures.drawing_lines(base) if base else None
+    if kind == "site":
+        return pictures.site_map(result, _SHARED["lines"])
+    if kind == "element":
+        return pictures.element_map(result, key, _SHARED["lines"])
+    if kind in ("scan", "field"):
+        scan = next(s for s in result.scans if s.scan_id == key)
+        return pictures.scan_preview(result, scan) if kind == "scan" else pictures.field_map(result, scan)
+    if kind == "defect":
+        if "defects" not in _SHARED:
+            _SHARED["defects"] = {d.defect_id: d for d in defects(result.zones, result.site.classes)}
+        return pictures.defect_sheet(result, _SHARED["defects"][key])
     return pictures.dxf_preview(dxf_path)
 
 
@@ -220,21 +243,29 @@ def write_outputs(result: "RunResult", out_dir: Path, *, overwrite: bool = False
     paths = output_paths(out_dir, result.site.basename, exporters, result.site.formats)
     folder = out_dir / f"{result.site.basename}-pictures"
     pics: dict[str, Path] = {}
+    pages: dict[str, Path] = {}
     if pictures:
-        paths["html"] = out_dir / f"{result.site.basename}-report.html"
         pics = {n: folder / f"{n}.png" for n in picture_names(result, "dxf" in exporters)}
-    browser = find_pdf_printer() if pdf is not False and pictures else None
+        if report_is_folder(result):
+            pages = {n: out_dir / f"{result.site.basename}-report" / n for n in report_page_names(result)}
+        else:
+            paths["html"] = out_dir / f"{result.site.basename}-report.html"
+    browser = find_pdf_printer() if (pdf or (pdf is None and not pages)) and pictures else None
     if pdf and browser is None:
         raise UsageError("--pdf needs a headless Chromium (Debian package chromium); the HTML report prints from any browser")
     if browser:
-        paths["pdf"] = out_dir / f"{result.site.basename}-report.pdf"
-    finals = list(paths.values()) + list(pics.values())
+        if pages:
+            pages.update({n[:-5] + ".pdf": p.with_suffix(".pdf") for n, p in list(pages.items())})
+        else:
+            paths["pdf"] = out_dir / f"{result.site.basename}-report.pdf"
+    finals = list(paths.values()) + list(pics.values()) + list(pages.values())
     check_targets(finals, overwrite=overwrite)
-    check_not_inputs(finals + ([folder] if pictures else []), run_inputs(result.site))
+    check_not_inputs(finals + ([folder] if pictures else []) + ([next(iter(pages.values())).parent] if pages else []),
+                     run_inputs(result.site))
     staged = Staged(finals)
     opened = None
     try:
-        _write_staged(result, exporters, paths, pics, staged, jobs, progress, pdf, browser)
+        _write_staged(result, exporters, paths, pics, pages, staged, jobs, progress, pdf, browser)
         if merge and result.site.merge is not None:
             opened = prepare_merge(result, replace_findings=replace_findings)
         staged.publish()
@@ -247,15 +278,19 @@ def write_outputs(result: "RunResult", out_dir: Path, *, overwrite: bool = False
     staged.finish()
     if pictures:
         paths["pictures"] = folder
+    if pages:
+        paths["html"] = pages["index.html"]
+        if "index.pdf" in pages and pages["index.pdf"] in staged.temps:
+            paths["pdf"] = pages["index.pdf"]
     return Written({k: v for k, v in paths.items() if k != "pdf" or v in staged.temps}, summary)
 
 
 def _write_staged(result: "RunResult", exporters: dict[str, "Exporter"], paths: dict[str, Path],
-                  pics: dict[str, Path], staged: Staged, jobs: int, progress: Callable[[int], None] | None,
-                  pdf: bool | None, browser: str | None) -> None:
+                  pics: dict[str, Path], pages: dict[str, Path], staged: Staged, jobs: int,
+                  progress: Callable[[int], None] | None, pdf: bool | None, browser: str | None) -> None:
     """Every output into its temporary file."""
     from .report import run_report
-    from .report_html import site_report
+    from .report_html import report_pages, site_report
 
     for fmt, exporter in exporters.items():
         try:
@@ -275,15 +310,45 @@ def _write_staged(result: "RunResult", exporters: dict[str, "Exporter"], paths: 
     images = draw_pictures(result, staged[paths["dxf"]] if "dxf" in exporters else None, jobs=jobs, progress=progress)
     for name, png in images.items():
         _write_bytes(staged[pics[name]], png)
-    _write_text(staged[paths["html"]], site_report(result, images))
-    if browser is not None:
-        try:
-            print_pdf(staged[paths["html"]], staged[paths["pdf"]], browser)
-        except ExporterError as exc:
-            if pdf:
-                raise
-            warnings.warn(f"{exc.line()}; the HTML report is written, no PDF", OutputWarning, stacklevel=3)
-            staged.drop(paths["pdf"])
+    if not pages:
+        _write_text(staged[paths["html"]], site_report(result, images))
+        if browser is not None:
+            _print(staged, staged[paths["html"]], paths["pdf"], browser, pdf)
+        return
+    from .report_html import embedded, linked
+
+    texts = report_pages(result, linked(set(images), f"../{pics[next(iter(images))].parent.name}"))
+    for name, text in texts.items():
+        _write_text(staged[pages[name]], text)
+    if browser is not None:  # each PDF prints from the same page with its pictures embedded
+        with tempfile.TemporaryDirectory(prefix="overlay-print-") as tmp:
+            for name, text in report_pages(result, embedded(images)).items():
+                page = Path(tmp) / name
+                _write_text(page, text)
+                _print(staged, page, pages[name[:-5] + ".pdf"], browser, pdf)
+
+
+def _print(staged: Staged, html_path: Path, pdf_path: Path, browser: str, pdf: bool | None) -> None:
+    try:
+        print_pdf(html_path, staged[pdf_path], browser)
+    except ExporterError as exc:
+        if pdf:
+            raise
+        warnings.warn(f"{exc.line()}; the HTML report is written, no PDF", OutputWarning, stacklevel=4)
+        staged.drop(pdf_path)
+
+
+def report_is_folder(result: "RunResult") -> bool:
+    """Above ``PAGE_LIMIT_SCANS`` scans the HTML report is a folder of pages, not one page."""
+    from .report_html import PAGE_LIMIT_SCANS
+
+    return len(result.scans) > PAGE_LIMIT_SCANS
+
+
+def report_page_names(result: "RunResult") -> list[str]:
+    from .report_html import page_names
+
+    return page_names(result)
 
 
 def _out_of_room(exc: Exception, folder: Path) -> bool:

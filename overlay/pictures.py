@@ -22,15 +22,18 @@ import shapely  # noqa: E402
 from matplotlib.patches import Polygon as MplPolygon  # noqa: E402
 from matplotlib.lines import Line2D  # noqa: E402
 from matplotlib.patches import Patch  # noqa: E402
+from matplotlib.ticker import FuncFormatter  # noqa: E402
 from matplotlib.tri import Triangulation  # noqa: E402
 
 from . import palette  # noqa: E402
 
 if TYPE_CHECKING:
     from .pipeline import RunResult, ScanResult
+    from .quantities import Defect
     from .zones import Zone
 
 VER_CMAP = "cividis"
+TITLE_Y = 1.01  # a fixed title height: placed automatically, each title measured every tick label first
 DPI = 110
 PREVIEW_SIZE = (8.0, 6.0)  # inches → 880 × 660 pixels
 SHEET_SIZE = (9.0, 3.6)
@@ -96,13 +99,36 @@ def _north(ax: plt.Axes, result: "RunResult") -> None:
                 arrowprops={"arrowstyle": "-|>", "color": "black"})
 
 
-def _triangulation(xy: np.ndarray) -> Triangulation:
-    """Delaunay triangles of the points, without the long ones that bridge gaps or the hull."""
-    tri = Triangulation(xy[:, 0], xy[:, 1])
+def _triangulation(xy: np.ndarray, rc: np.ndarray | None = None, ok: np.ndarray | None = None) -> Triangulation:
+    """Triangles over the points: two per grid cell whose four corners are usable (no Delaunay needed:
+    a 50,000-point scan's triangulation cost most of its picture), else Delaunay without the long
+    triangles that bridge gaps or the hull."""
+    if rc is not None:
+        use = np.ones(len(xy), dtype=bool) if ok is None else ok
+        rows, cols = rc.max(axis=0) + 1
+        node = np.full((rows + 1, cols + 1), -1, dtype=np.int64)
+        have = (rc[:, 0] >= 0) & use
+        node[rc[have, 0], rc[have, 1]] = np.nonzero(have)[0]
+        a, b, c, d = node[:-1, :-1], node[:-1, 1:], node[1:, 1:], node[1:, :-1]
+        full = (a >= 0) & (b >= 0) & (c >= 0) & (d >= 0)
+        if full.any():
+            tris = np.concatenate([np.column_stack([a[full], b[full], c[full]]),
+                                   np.column_stack([a[full], c[full], d[full]])])
+            return Triangulation(xy[:, 0], xy[:, 1], tris)
+    pts = xy if ok is None else xy[ok]
+    tri = Triangulation(pts[:, 0], pts[:, 1])
     t = tri.triangles
-    edges = np.stack([np.hypot(*(xy[t[:, i]] - xy[t[:, (i + 1) % 3]]).T) for i in range(3)], axis=1).max(axis=1)
+    edges = np.stack([np.hypot(*(pts[t[:, i]] - pts[t[:, (i + 1) % 3]]).T) for i in range(3)], axis=1).max(axis=1)
     tri.set_mask(edges > 3.0 * np.median(edges))
     return tri
+
+
+def _map_values(scan: "ScanResult", values: np.ndarray, ok: np.ndarray) -> tuple[Triangulation, np.ndarray]:
+    """A triangulation and the values it colours: on the grid (all points, unusable ones left out of the
+    cells), or over the usable scattered points."""
+    if scan.grid_rc is not None:
+        return _triangulation(scan.point_xy, scan.grid_rc, ok), np.where(ok, values, 0.0)
+    return _triangulation(scan.point_xy[ok]), values[ok]
 
 
 def scan_preview(result: "RunResult", scan: "ScanResult") -> bytes:
@@ -113,14 +139,14 @@ def scan_preview(result: "RunResult", scan: "ScanResult") -> bytes:
     xy = scan.point_xy
     ok = scan.valid & np.isfinite(scan.ver_db)
     lo, hi = np.nanpercentile(scan.ver_db[ok], [1, 99.5]) if ok.any() else (0.0, 1.0)
-    tri = _triangulation(xy[ok])
-    sc = ax.tripcolor(tri, scan.ver_db[ok], cmap=VER_CMAP, vmin=min(lo, 0.0), vmax=max(hi, 1.0), shading="gouraud")
+    tri, values = _map_values(scan, scan.ver_db, ok)
+    sc = ax.tripcolor(tri, values, cmap=VER_CMAP, vmin=min(lo, 0.0), vmax=max(hi, 1.0), shading="gouraud")
     fig.colorbar(sc, ax=ax, label="vibration energy ratio (dB)", shrink=0.85)
     bad = ~scan.valid
     if bad.any():
         ax.scatter(xy[bad, 0], xy[bad, 1], marker="x", color="black", s=14, linewidths=0.8, label="invalid point")
     _rings(ax, scan.extent, color="0.3", lw=0.8, ls=":")
-    for z in scan.zones:
+    for z in zones_of(result, scan):
         colour, ls = _class_style(result, z.class_name)
         _rings(ax, z.contour, color=colour, lw=1.6, ls=ls)
         if z.defect_id == z.zone_id:
@@ -140,7 +166,7 @@ def scan_preview(result: "RunResult", scan: "ScanResult") -> bytes:
     ax.set_xlabel(f"drawing x ({result.site.drawing_unit})")
     ax.set_ylabel(f"drawing y ({result.site.drawing_unit})")
     ax.set_title(f"scan {scan.scan_id} — {scan.element}   (target residual arrows ×50, RMS {scan.fit.rms * 1000 * result.unit_m:.1f} mm)",
-                 fontsize=10)
+                 fontsize=10, y=TITLE_Y)
     ax.legend(loc="upper left", fontsize=7, framealpha=0.85)
     _scale_bar(ax, result.unit_m)
     _north(ax, result)
@@ -156,14 +182,15 @@ def field_map(result: "RunResult", scan: "ScanResult") -> bytes:
     fig.subplots_adjust(**MARGINS["preview"])
     xy = scan.point_xy
     ok = scan.valid & np.isfinite(ref.level_db)
-    level = ref.level_db[ok] - np.nanmedian(ref.level_db[ok])
-    sc = ax.tripcolor(_triangulation(xy[ok]), level, cmap="magma", shading="gouraud")
+    level = ref.level_db - np.nanmedian(ref.level_db[ok])
+    tri, values = _map_values(scan, level, ok)
+    sc = ax.tripcolor(tri, values, cmap="magma", shading="gouraud")
     fig.colorbar(sc, ax=ax, label="reference level against its median (dB)", shrink=0.85)
-    cs = ax.tricontour(_triangulation(xy[ok]), level, levels=np.arange(np.floor(level.min()), level.max() + 1, 1.0),
+    cs = ax.tricontour(tri, values, levels=np.arange(np.floor(level[ok].min()), level[ok].max() + 1, 1.0),
                        colors="white", linewidths=0.6)
     ax.clabel(cs, fmt="%g dB", fontsize=6)
     _rings(ax, scan.extent, color="0.3", lw=0.8, ls=":")
-    for z in scan.zones:
+    for z in zones_of(result, scan):
         if z.defect_id == z.zone_id:
             _rings(ax, z.contour, color="white", lw=1.2)
     ax.set_aspect("equal")
@@ -171,40 +198,104 @@ def field_map(result: "RunResult", scan: "ScanResult") -> bytes:
     ax.set_xlabel(f"drawing x ({result.site.drawing_unit})")
     ax.set_ylabel(f"drawing y ({result.site.drawing_unit})")
     ax.set_title(f"scan {scan.scan_id} — sound field: spans {ref.field_span_db:.1f} dB, scatter "
-                 f"{ref.field_scatter_db:.1f} dB; VER is measured against it", fontsize=10)
+                 f"{ref.field_scatter_db:.1f} dB; VER is measured against it", fontsize=10, y=TITLE_Y)
     _scale_bar(ax, result.unit_m)
     _north(ax, result)
     return _png(fig)
 
 
-def zone_sheet(result: "RunResult", scan: "ScanResult", zone: "Zone") -> bytes:
-    """One zone: its averaged spectrum against the healthy reference, the band and the peak; and the
-    histogram of per-point peak frequencies."""
+def zones_of(result: "RunResult", scan: "ScanResult") -> list["Zone"]:
+    """The site's final zones (after the mosaic) that this scan contributed to: what the tables list."""
+    return [z for z in result.zones if scan.scan_id in z.scan_id.split(";")]
+
+
+def defect_sheet(result: "RunResult", defect: "Defect") -> bytes:
+    """One defect: its zone's averaged spectrum against sound concrete, the band and the peak; the
+    histogram of per-point peak frequencies; its class contour areas, outline and confidence — the
+    numbers of the zone and defect tables."""
     fig, (a1, a2) = plt.subplots(1, 2, figsize=SHEET_SIZE, width_ratios=[1.6, 1])
     fig.subplots_adjust(**MARGINS["sheet"])
+    top, low = defect.top, defect.lowest
+    scans = {s.scan_id: s for s in result.scans}
+    scan = scans[low.scan_id.split(";")[0]]
+    zone = top if top.spectrum is not None else low
     if zone.spectrum is not None and scan.band_freqs is not None:
         f = scan.band_freqs
-        a1.semilogy(f, zone.spectrum, color="#D55E00", lw=1.4, label="zone average")
+        a1.semilogy(f, zone.spectrum, color="#D55E00", lw=1.4, label=f"{zone.class_name} zone average")
         if scan.healthy_spectrum is not None:
             a1.semilogy(f, scan.healthy_spectrum, color="#0072B2", lw=1.2, ls="--", label="sound concrete (|VER| < 1 dB)")
         a1.set_xlim(f[0], f[-1])
+        a1.minorticks_off()  # a log axis's minor ticks were half the sheet's drawing time
+        a1.yaxis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:.0e}"))  # no mathtext to typeset
     else:
         a1.text(0.5, 0.5, "ready VER: no spectra in the bundle", ha="center", va="center", transform=a1.transAxes)
-    if zone.peak_hz == zone.peak_hz:
-        a1.axvline(zone.peak_hz, color="black", lw=0.8, ls=":", label=f"peak {zone.peak_hz:.0f} Hz")
+    if top.peak_hz == top.peak_hz:
+        a1.axvline(top.peak_hz, color="black", lw=0.8, ls=":", label=f"peak {top.peak_hz:.0f} Hz")
     a1.set_xlabel("frequency (Hz), analysis band")
     a1.set_ylabel("PSD ((m/s)²/Hz)")
-    a1.legend(fontsize=7)
-    a1.set_title(f"{zone.zone_id}: {zone.class_name}, contour {zone.area_m2:.3f} m², outline {zone.outline_area_m2:.3f} m²",
-                 fontsize=9)
-    inside = shapely.contains_xy(zone.contour, scan.point_xy[:, 0], scan.point_xy[:, 1]) & scan.valid
-    peaks = scan.peak_hz[inside & np.isfinite(scan.peak_hz)]
-    if peaks.size:
-        a2.hist(peaks, bins=min(30, max(5, peaks.size // 3)), color="#E69F00", edgecolor="black", lw=0.4)
+    if a1.get_legend_handles_labels()[0]:
+        a1.legend(fontsize=7)
+    areas = ", ".join(f"{c.name} {defect.contour_area_m2(c.name):.4f}" for c in result.site.classes
+                      if defect.contour_area_m2(c.name) > 0)  # the tables' precision, so they read the same
+    a1.set_title(f"defect {defect.defect_id}: contours {areas} m²; outline {low.outline_area_m2:.4f} m² "
+                 f"({low.outline_basis})", fontsize=8, y=TITLE_Y)
+    peaks = []
+    for sid in low.scan_id.split(";"):
+        s = scans[sid]
+        inside = shapely.contains_xy(low.contour, s.point_xy[:, 0], s.point_xy[:, 1]) & s.valid
+        peaks.append(s.peak_hz[inside & np.isfinite(s.peak_hz)])
+    p = np.concatenate(peaks) if peaks else np.zeros(0)
+    if p.size:
+        a2.hist(p, bins=min(30, max(5, p.size // 3)), color="#E69F00", edgecolor="black", lw=0.4)
     a2.ticklabel_format(axis="x", useOffset=False, style="plain")  # whole hertz, no "+2.6e3" offset
     a2.set_xlabel("per-point peak frequency (Hz)")
     a2.set_ylabel("points")
-    a2.set_title(f"spread {zone.peak_spread:.3f}, confidence {zone.confidence:.2f}", fontsize=9)
+    a2.set_title(f"{top.zone_id}: peak {top.peak_hz:.0f} Hz, confidence {top.confidence:.2f}", fontsize=8, y=TITLE_Y)
+    return _png(fig)
+
+
+def element_map(result: "RunResult", element: str, drawing_lines: list[np.ndarray] | None = None) -> bytes:
+    """One element at a readable scale: its scans, zones by class with their defect ids, outlines and
+    repair footprints — the site map's zones are dots on a long structure, here they are not."""
+    fig, ax = plt.subplots(figsize=PREVIEW_SIZE)
+    fig.subplots_adjust(**MARGINS["preview"])
+    scans = [s for s in result.scans if s.element == element and not s.extent.is_empty]
+    zones = [z for z in result.zones if z.element == element]
+    box = shapely.union_all([s.extent for s in scans] + [z.footprint for z in zones]).bounds
+    pad = 0.08 * max(box[2] - box[0], box[3] - box[1])
+    window = shapely.box(box[0] - pad, box[1] - pad, box[2] + pad, box[3] + pad)
+    for line in drawing_lines or []:
+        clipped = shapely.intersection(shapely.LineString(line), window) if len(line) > 1 else None
+        if clipped is not None and not clipped.is_empty:
+            for part in shapely.get_parts(clipped):
+                xy = np.asarray(part.coords)
+                ax.plot(xy[:, 0], xy[:, 1], color="0.7", lw=0.6)
+    for s in scans:
+        _rings(ax, s.extent, color="0.35", lw=0.8, ls=":")
+        x0, _, _, y1 = s.extent.bounds
+        ax.text(x0, y1, s.scan_id, fontsize=7, va="bottom", color="0.35")
+    for z in zones:
+        colour, ls = _class_style(result, z.class_name)
+        ax.add_patch(MplPolygon(np.asarray(z.contour.exterior.coords), closed=True, fc=colour, ec=colour, alpha=0.45,
+                                lw=0.8))
+        if z.defect_id == z.zone_id:
+            _rings(ax, z.defect, color=palette.hex_of(palette.DEFECT_RGB), lw=1.0, ls="--")
+            _rings(ax, z.footprint, color=palette.hex_of(palette.REPAIR_RGB), lw=1.2)
+            x0, _, x1, y1 = z.footprint.bounds
+            ax.annotate(z.zone_id, ((x0 + x1) / 2, y1), fontsize=7, ha="center", va="bottom")
+    handles = [Patch(color=_class_style(result, c.name)[0], alpha=0.45, label=f"{c.name} >= {c.threshold_db:g} dB")
+               for c in result.site.classes] + [
+        Line2D([], [], color=palette.hex_of(palette.DEFECT_RGB), ls="--", label="defect outline"),
+        Line2D([], [], color=palette.hex_of(palette.REPAIR_RGB), label="repair footprint")]
+    ax.legend(handles=handles, loc="upper left", fontsize=7, framealpha=0.85)
+    ax.set_xlim(window.bounds[0], window.bounds[2])
+    ax.set_ylim(window.bounds[1], window.bounds[3])
+    ax.set_aspect("equal")
+    ax.set_xlabel(f"drawing x ({result.site.drawing_unit})")
+    ax.set_ylabel(f"drawing y ({result.site.drawing_unit})")
+    ax.set_title(f"element {element}: {len({z.defect_id for z in zones})} defect(s), {len(scans)} scan(s)", fontsize=10, y=TITLE_Y)
+    _scale_bar(ax, result.unit_m)
+    _north(ax, result)
     return _png(fig)
 
 
@@ -232,7 +323,8 @@ def site_map(result: "RunResult", drawing_lines: list[np.ndarray] | None = None)
     ax.set_ylabel(f"drawing y ({result.site.drawing_unit})")
     ax.margins(0.04)
     fig.legend(handles=handles, loc="lower center", ncol=4, fontsize=8, frameon=False)
-    ax.set_title(f"{result.site.name} {result.site.structure} — suspect zones", fontsize=10)
+    ax.set_title(f"{result.site.name} {result.site.structure} — screening zones (element pictures show them "
+                 "at a readable scale)", fontsize=10, y=TITLE_Y)
     _fit_height(fig, ax)
     _scale_bar(ax, result.unit_m)
     _north(ax, result)

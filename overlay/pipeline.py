@@ -82,6 +82,7 @@ class ScanResult:
     zones: list[Zone]
     band_freqs: np.ndarray | None = None  # Hz, the frequency axis of zone spectra
     healthy_spectrum: np.ndarray | None = None  # mean band PSD of sound points (|VER| < 1 dB)
+    grid_rc: np.ndarray | None = None  # (n, 2) row and column of each point on its grid; None for scattered points
 
 
 @dataclass
@@ -162,6 +163,16 @@ def scan_grid(scan: Scan, xy: np.ndarray | None = None) -> Grid | ScatterGrid:
     cols = np.empty(scan.n_points, dtype=np.int64)
     rows[regular.index[r, c]], cols[regular.index[r, c]] = r, c
     return grid_from_indices(xy, rows, cols)
+
+
+def grid_positions(grid: Grid | ScatterGrid, n: int) -> np.ndarray | None:
+    """Each point's (row, column) on its grid (-1 where it has none), for pictures drawn cell by cell."""
+    if isinstance(grid, ScatterGrid):
+        return None
+    rc = np.full((n, 2), -1, dtype=np.int64)
+    r, c = np.nonzero(grid.index >= 0)
+    rc[grid.index[r, c]] = np.column_stack([r, c])
+    return rc
 
 
 def healthy_mask(scan: Scan, entry: ScanEntry, point_xy: np.ndarray) -> np.ndarray | None:
@@ -288,6 +299,7 @@ def process_scan(
         zones=zones,
         band_freqs=band_freqs,
         healthy_spectrum=healthy,
+        grid_rc=grid_positions(grid, n),
     )
 
 

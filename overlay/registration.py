@@ -188,7 +188,7 @@ def check_scale(fit: Fit, frame: str, scan: Scan, drawing_unit_m: float, at: np.
         hint = "check the targets' drawing coordinates and the units"
     raise RegistrationError(f"{fit.model} fit scales a metre of the surface to {per_m / drawing_unit_m:.6g} {unit} of "
                             f"the drawing, {ratio:.4g}x what the declared units say (drawing_unit {unit!r}): {hint}",
-                            source=source, field="targets")
+                            source=source, field="targets", details=fit.report(unit))
 
 
 def _incidence(scan: Scan, entry: ScanEntry, frame: str, fit: Fit, working: Callable[[np.ndarray], np.ndarray],

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import difflib
+import re
 import sys
 from pathlib import Path
 from typing import Any
@@ -39,6 +40,46 @@ def load_toml(path: Path, error: type[OverlayError]) -> dict[str, Any]:
         raise error("not a usable TOML file (nested too deeply)", source=path) from exc
 
 
+_HEADER = re.compile(r"^\s*(\[\[?)\s*([^\]]+?)\s*\]\]?\s*(#.*)?$")
+_KEY = re.compile(r"^\s*(\"[^\"]*\"|'[^']*'|[A-Za-z0-9_-]+)\s*[.=]")
+_PART = re.compile(r"([^.\[\]]+)(?:\[(\d+)\])?")
+
+
+def toml_line(text: str, dotted: str) -> int | None:
+    """The line (1-based) that sets ``dotted`` (``a.b``, ``scans[3].bundle``) in a TOML text, else the
+    line of its table, else None: a reader goes to the line, not only the field."""
+    want = [(m.group(1), None if m.group(2) is None else int(m.group(2))) for m in _PART.finditer(dotted)]
+    if not want:
+        return None
+    *table, (key, _) = want
+    counts: dict[str, int] = {}
+    current: list[tuple[str, int | None]] = []
+    header_line = None if table else 0
+    for n, line in enumerate(text.splitlines(), 1):
+        h = _HEADER.match(line)
+        if h:
+            names = [x.strip().strip("\"'") for x in h.group(2).split(".")]
+            if h.group(1) == "[[":
+                name = ".".join(names)
+                counts[name] = counts.get(name, -1) + 1
+                current = [(x, None) for x in names[:-1]] + [(names[-1], counts[name])]
+            else:
+                current = [(x, None) for x in names]
+            if current == table or _same(current, table):
+                header_line = n
+            continue
+        k = _KEY.match(line)
+        if k and (current == table or _same(current, table)) and k.group(1).strip("\"'") == key:
+            return n
+    return header_line or None
+
+
+def _same(current: list[tuple[str, int | None]], table: list[tuple[str, int | None]]) -> bool:
+    """A header matches a wanted table path; an index is compared only where the header has one."""
+    return len(current) == len(table) and all(
+        a == b and (i is None or j is None or i == j) for (a, i), (b, j) in zip(current, table))
+
+
 class Fields:
     """Typed access to one TOML table, each failure naming file and dotted field.
 
@@ -65,7 +106,16 @@ class Fields:
             near = difflib.get_close_matches(key, self.unknown(), n=1, cutoff=0.6)
             if near:
                 problem += f" (the file has {self.name(near[0])!r}: misspelt?)"
-        return self.error(problem, source=self.source, field=self.name(key))
+        return self.error(problem, source=self.source, field=self.where(key))
+
+    def where(self, key: str) -> str:
+        """``line N, dotted.key`` where the line is known (the source read again: errors only)."""
+        try:
+            text = self.source.read_text(encoding="utf-8")
+        except (OSError, UnicodeDecodeError, AttributeError):
+            return self.name(key)
+        n = toml_line(text, self.name(key))
+        return f"line {n}, {self.name(key)}" if n else self.name(key)
 
     def has(self, key: str) -> bool:
         self.seen.add(key)

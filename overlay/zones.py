@@ -59,7 +59,7 @@ class Concrete:
 
 @dataclass
 class Zone:
-    """One suspect zone of one class in one scan; geometries in the drawing frame (drawing units).
+    """One screening zone of one class in one scan; geometries in the drawing frame (drawing units).
 
     ``contour`` is the class-level contour, ``defect`` the estimated defect outline (shared by
     the nested zones of one defect, ``defect_id``), ``footprint`` the repair rectangle.

@@ -60,7 +60,7 @@ def test_one_broken_bundle_among_good_ones(site_copy: Path, tmp_path: Path, caps
     broken = site_copy.parent / "scans" / "S-103" / "records.npy"
     broken.write_bytes(broken.read_bytes()[:1000])  # truncated in transfer
     out = tmp_path / "out"
-    code = main(["run", str(site_copy), "--out", str(out), "-q", "--no-pictures", "--no-merge"])
+    code = main(["run", str(site_copy), "--out", str(out), "--no-pictures", "--no-merge"])
     captured = capsys.readouterr()
     assert code == 3
     assert "S-103/records.npy: not a readable .npy array" in captured.err
@@ -102,9 +102,9 @@ def test_cache_recomputes_only_what_changed(site_copy: Path, tmp_path: Path) -> 
 
 def test_cli_jobs_two_and_an_unreachable_scheduler(site_copy: Path, tmp_path: Path, capsys: pytest.CaptureFixture) -> None:
     out = tmp_path / "out"
-    assert main(["run", str(site_copy), "--out", str(out), "-q", "--jobs", "2", "--no-pictures", "--no-merge"]) == 0
+    assert main(["run", str(site_copy), "--out", str(out), "--jobs", "2", "--no-pictures", "--no-merge"]) == 0
     assert "scans: 6 computed, 0 from the cache, 0 failed" in capsys.readouterr().out
-    assert main(["run", str(site_copy), "--out", str(out), "-q", "--jobs", "2", "--no-pictures", "--no-merge",
+    assert main(["run", str(site_copy), "--out", str(out), "--jobs", "2", "--no-pictures", "--no-merge",
                  "--overwrite"]) == 0
     assert "0 computed, 6 from the cache" in capsys.readouterr().out
     pytest.importorskip("dask.distributed")

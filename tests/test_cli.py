@@ -1,6 +1,8 @@
-"""Command line: exit codes of DESIGN.md §6, one-line errors, nothing written on failure."""
+"""Command line: exit codes of the README, one-line errors, nothing written on failure."""
 
 from __future__ import annotations
+
+import re
 
 import os
 import subprocess
@@ -42,7 +44,7 @@ def test_run_writes_outputs_and_refuses_to_overwrite(site: Path, tmp_path: Path,
     assert main(["run", str(site), "--out", str(out)]) == 0
     names = {p.name for p in _files(out)} - {"overlay-report.pdf"}  # the PDF comes where Chromium is installed
     assert names == {"overlay.dxf", "overlay.gpkg", "overlay-quantities.csv", "overlay-report.txt", "overlay-report.html",
-                     "site-map.png", "scan-S-T1.png", "dxf-preview.png"} | {f"zone-S-T1.{c}.01.png" for c in ("watch", "suspect", "probable")}
+                     "site-map.png", "element-EL-1.png", "scan-S-T1.png", "defect-S-T1.watch.01.png", "dxf-preview.png"}
     stamp = {p: p.read_bytes() for p in _files(out)}
     capsys.readouterr()
     assert main(["run", str(site), "--out", str(out)]) == 5
@@ -69,7 +71,15 @@ def test_misfit_exit_4_then_override(tmp_path: Path, capsys: pytest.CaptureFixtu
     site = write_site(tmp_path, ["S-1"])
     out = tmp_path / "out"
     assert main(["run", str(site), "--out", str(out)]) == 4
-    assert "fit misses B by" in capsys.readouterr().err
+    err = capsys.readouterr().err
+    assert "fit misses B by" in err
+    # the evidence follows the one error line: the fit and one residual row per target, indented
+    first, *evidence = [line for line in err.splitlines() if not line.startswith(("scans", "failed", "  "))
+                        or line.startswith("    ")][:1] + [line for line in err.splitlines() if line.startswith("    ")]
+    assert first.startswith("overlay: error:")
+    assert any(line.strip().startswith("model similarity, 4 points, RMS") for line in evidence)
+    rows = [line for line in evidence if re.search(r"dx [+-]\d\.\d{4}  dy [+-]\d\.\d{4}  \|r\| \d\.\d{4}", line)]
+    assert len(rows) == 4 and any(line.split()[0] == "B" for line in rows)
     assert _files(out) == []
     assert main(["run", str(site), "--out", str(out), "--accept-misfit"]) == 0
     assert "MISFIT ACCEPTED BY OVERRIDE" in (out / "overlay-report.txt").read_text()
@@ -253,3 +263,30 @@ def test_progress_bars_on_a_terminal_only(tmp_path: Path) -> None:
     assert "scans" not in quiet and "pictures" not in quiet and "\r" not in quiet
     shown = _run_with_stderr(site, tmp_path / "out-tty", terminal=True)
     assert "scans" in shown and "points" in shown and "48" in shown and "pictures" in shown
+
+
+def test_quiet_prints_only_the_paths_written(site: Path, tmp_path: Path, capsys: pytest.CaptureFixture) -> None:
+    out = tmp_path / "out"
+    assert main(["run", str(site), "--out", str(out), "-q", "--no-pictures"]) == 0
+    printed = capsys.readouterr().out.splitlines()
+    assert printed and all(Path(line).exists() for line in printed), printed
+    assert {Path(p).name for p in printed} == {p.name for p in _files(out)}
+
+
+def test_demo_offers_no_overwrite_option(capsys: pytest.CaptureFixture) -> None:
+    # a demo rerun always replaces its folder, so an --overwrite option would be a promise with no effect
+    with pytest.raises(SystemExit):
+        main(["demo", "--help"])
+    assert "--overwrite" not in capsys.readouterr().out
+    with pytest.raises(SystemExit):
+        main(["run", "--help"])
+    assert "--overwrite" in capsys.readouterr().out
+
+
+def test_site_file_errors_name_the_line(site: Path, capsys: pytest.CaptureFixture) -> None:
+    text = site.read_text()
+    site.write_text(text.replace("tolerance_m = 0.01", "tolerance_m = -1"))
+    assert main(["run", str(site), "--out", str(site.parent / "out")]) == 3
+    err = capsys.readouterr().err.strip()
+    line = text.splitlines().index("tolerance_m = 0.01") + 1
+    assert f"site.toml: line {line}, registration.tolerance_m: must be positive" in err, err

@@ -147,16 +147,27 @@ def test_quantities_csv_totals_equal_sum_of_rows(written: dict) -> None:
     result = written["result"]
     rows = list(csv.DictReader(written["paths"]["quantities-csv"].open()))
     zone_rows = [r for r in rows if r["row_kind"] == "zone"]
+    defect_rows = [r for r in rows if r["row_kind"] == "defect"]
     totals = [r for r in rows if r["row_kind"] == "element_total"]
     assert len(zone_rows) == len(result.zones)
+    assert len(defect_rows) == len({z.defect_id for z in result.zones}) > 0
     assert totals
+    # each defect once: the element totals, over all classes, count every defect exactly once
+    assert sum(int(t["n_defects"]) for t in totals) == len(defect_rows)
     for t in totals:
-        # a class total counts each defect once (nested zones of one defect share its outline)
-        parts = {r["defect_id"]: r for r in zone_rows if r["element"] == t["element"] and r["class"] == t["class"]}
+        parts = [r for r in defect_rows if r["element"] == t["element"] and r["class"] == t["class"]]
         for col in ("affected_area_m2", "footprint_area_m2", "volume_low_m3", "volume_high_m3"):
-            assert float(t[col]) == pytest.approx(sum(float(r[col]) for r in parts.values()), abs=1e-3)
+            assert float(t[col]) == pytest.approx(sum(float(r[col]) for r in parts), abs=1e-3)
         assert int(t["n_defects"]) == len(parts)
         assert float(t["element_share_pct"]) == pytest.approx(100 * float(t["affected_area_m2"]) / float(t["element_area_m2"]), abs=1e-3)
+    for d in defect_rows:
+        # a defect's class contour areas are those of its zones; its class is the highest it reaches
+        mine = [r for r in zone_rows if r["defect_id"] == d["defect_id"]]
+        for c in result.site.classes:
+            assert float(d[f"contour_{c.name}_m2"]) == pytest.approx(
+                sum(float(r["contour_area_m2"]) for r in mine if r["class"] == c.name), abs=2e-4)
+        reached = [c.name for c in result.site.classes if any(r["class"] == c.name for r in mine)]
+        assert d["class"] == reached[-1]
 
 
 def test_report_carries_cautions(written: dict) -> None:

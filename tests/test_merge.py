@@ -378,11 +378,16 @@ def test_splitting_by_assets_conserves_area(demo: dict) -> None:
 
 
 def test_asset_rows_in_the_quantities(demo: dict) -> None:
-    from overlay.exporters.quantities_csv import asset_rows
+    from overlay.quantities import asset_rows, element_rows
 
     rows = asset_rows(demo["result"])
     assert rows and all(r["row_kind"] == "asset_total" for r in rows)
-    watch = {r["element"]: r for r in rows if r["class"] == "watch"}
-    # the demo's zones lie inside their bays: per-asset areas equal the per-element totals
-    z = [x for x in demo["result"].zones if x.element == "KLO2-S2-B1" and x.class_name == "watch"]
-    assert float(watch["KLO2-S2-B1"]["affected_area_m2"]) == pytest.approx(sum(x.outline_area_m2 for x in z), abs=1e-3)
+    # the demo's zones lie inside their bays: per-asset rows equal the per-element rows, footprint and
+    # volume included (each defect once, at its highest class)
+    by_element = {(r["element"], r["class"]): r for r in element_rows(demo["result"])}
+    assert {(r["element"], r["class"]) for r in rows} == set(by_element)
+    for r in rows:
+        e = by_element[(r["element"], r["class"])]
+        assert r["n_defects"] == e["n_defects"]
+        for col in ("affected_area_m2", "footprint_area_m2", "volume_low_m3", "volume_high_m3"):
+            assert float(r[col]) == pytest.approx(float(e[col]), abs=1e-3), col

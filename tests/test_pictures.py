@@ -4,6 +4,7 @@
 from __future__ import annotations
 
 import csv
+import re
 import dataclasses
 import io
 import shutil
@@ -13,6 +14,7 @@ from html.parser import HTMLParser
 from pathlib import Path
 
 import matplotlib.image as mpimg
+import matplotlib.text
 import numpy as np
 import pytest
 
@@ -42,28 +44,75 @@ def test_every_picture_is_written_with_its_size(written: dict) -> None:
     folder = written["paths"]["pictures"]
     result = written["result"]
     names = {p.stem for p in folder.glob("*.png")}
-    assert names == {"site-map", "dxf-preview"} | {f"scan-{s.scan_id}" for s in result.scans} | {
-        f"zone-{z.zone_id}" for s in result.scans for z in s.zones}
+    expected = {"site-map", "dxf-preview"} | {f"scan-{s.scan_id}" for s in result.scans}
+    expected |= {f"element-{z.element}" for z in result.zones} | {f"defect-{z.defect_id}" for z in result.zones}
+    expected |= {f"field-{s.scan_id}" for s in result.scans if s.reference.level_db is not None}
+    assert names == expected
     for p in folder.glob("*.png"):
         data = p.read_bytes()
         assert len(data) > 5000, p.name
         w, h = _size(data)
-        if p.stem.startswith("scan-"):
+        if p.stem.startswith(("scan-", "element-", "field-")):
             assert (w, h) == (880, 660)
-        elif p.stem.startswith("zone-"):
+        elif p.stem.startswith("defect-"):
             assert (w, h) == (990, 396)
         assert w > 300 and h > 200
 
 
 def test_a_map_with_zones_differs_from_one_without(demo: dict) -> None:
     result = demo["result"]
-    scan = next(s for s in result.scans if s.zones)
+    scan = next(s for s in result.scans if pictures.zones_of(result, s))
     with_zones = _pixels(pictures.scan_preview(result, scan))
-    without = _pixels(pictures.scan_preview(result, dataclasses.replace(scan, zones=[])))
+    without = _pixels(pictures.scan_preview(dataclasses.replace(result, mosaic=[]), scan))
     assert with_zones.shape == without.shape
     assert np.mean(np.any(np.abs(with_zones - without) > 0.05, axis=-1)) > 0.001
     # and neither is blank: many distinct colours
     assert len(np.unique(with_zones.reshape(-1, with_zones.shape[-1]), axis=0)) > 50
+
+
+ZONE_ID = re.compile(r"[A-Za-z0-9_-]+\.(?:watch|suspect|probable)\.\d\d(?:\+\d+)?")
+
+
+def test_picture_ids_and_numbers_match_the_zone_table(written: dict, monkeypatch: pytest.MonkeyPatch) -> None:
+    # one source of truth: every zone id a picture shows (in its texts or its file name) is a row of the
+    # quantities CSV, and a defect sheet's areas, peak and confidence read the same as those rows
+    from overlay import outputs
+
+    rows = list(csv.DictReader(written["paths"]["quantities-csv"].open()))
+    zones = {r["zone_id"]: r for r in rows if r["row_kind"] == "zone"}
+    defects = {r["defect_id"]: r for r in rows if r["row_kind"] == "defect"}
+    texts: dict[str, list[str]] = {}
+    drawn: list[str] = []
+    real_png = pictures._png
+
+    def capture(fig):  # the texts of the figure about to be rendered
+        drawn.append("\n".join(t.get_text() for t in fig.findobj(matplotlib.text.Text)))
+        return real_png(fig)
+
+    monkeypatch.setattr(pictures, "_png", capture)
+    for name, kind, key in outputs._picture_tasks(written["result"], None):
+        outputs._share(written["result"], None)
+        outputs._draw((name, kind, key))
+        texts[name] = drawn[-1]
+    outputs._SHARED.clear()
+    seen = set()
+    for name, text in texts.items():
+        for zid in ZONE_ID.findall(text):
+            assert zid in zones, (name, zid)
+            seen.add(zid)
+        if name.startswith("defect-"):
+            did = name[len("defect-"):]
+            assert did in defects
+            d = defects[did]
+            for c in written["result"].site.classes:
+                area = float(d[f"contour_{c.name}_m2"])
+                if area > 0:
+                    assert f"{c.name} {area:.4f}" in text, (name, c.name)
+            assert f"outline {float(d['outline_area_m2']):.4f} m²" in text
+            top = zones[d["zone_id"]]
+            assert f"{top['zone_id']}: peak {float(top['peak_hz']):.0f} Hz, confidence {float(top['confidence']):.2f}" in text
+    assert {d["defect_id"] for d in defects.values()} <= seen  # every defect is named in some picture
+    assert set(defects) == {n[len("defect-"):] for n in texts if n.startswith("defect-")}
 
 
 class _Checker(HTMLParser):
@@ -112,56 +161,89 @@ def test_html_report_is_well_formed_self_contained_and_complete(written: dict) -
 
 
 class _Tables(HTMLParser):
-    """Rows of every table as lists of cell texts."""
+    """Every table as a list of rows, each a list of cell texts (the first row holds the headers)."""
 
     def __init__(self) -> None:
         super().__init__()
-        self.rows: list[list[str]] = []
+        self.tables: list[list[list[str]]] = []
         self.cell: list[str] | None = None
 
     def handle_starttag(self, tag: str, attrs: list) -> None:
-        if tag == "tr":
-            self.rows.append([])
+        if tag == "table":
+            self.tables.append([])
+        elif tag == "tr":
+            self.tables[-1].append([])
         elif tag in ("td", "th"):
             self.cell = []
 
     def handle_endtag(self, tag: str) -> None:
         if tag in ("td", "th") and self.cell is not None:
-            self.rows[-1].append("".join(self.cell))
+            self.tables[-1][-1].append("".join(self.cell))
             self.cell = None
 
     def handle_data(self, data: str) -> None:
         if self.cell is not None:
             self.cell.append(data)
 
+    def table(self, first_headers: list[str]) -> list[dict[str, str]]:
+        """The one table whose headers start so, as dicts by header."""
+        found = [t for t in self.tables if t and t[0][:len(first_headers)] == first_headers]
+        assert len(found) == 1, [t[0] for t in self.tables if t]
+        head, *body = found[0]
+        return [dict(zip(head, r)) for r in body]
 
-def test_html_totals_equal_the_quantities_csv(written: dict) -> None:
-    csv_rows = [r for r in csv.DictReader(written["paths"]["quantities-csv"].open()) if r["row_kind"] == "element_total"]
+
+def _number(cell: str) -> float:
+    return float(cell.split()[0])
+
+
+def test_html_tables_equal_the_quantities_csv(written: dict) -> None:
+    # the primary table (each defect once) and the class contours read the same in both
+    rows = list(csv.DictReader(written["paths"]["quantities-csv"].open()))
     t = _Tables()
     t.feed(written["paths"]["html"].read_text(encoding="utf-8"))
-    html_rows = {(r[0], r[1]): r for r in t.rows if len(r) == 8 and r[0] != "element"}
-    assert len(html_rows) == len(csv_rows) > 0
-    for r in csv_rows:
-        h = html_rows[(r["element"], r["class"])]
-        assert [h[2], h[3], h[4], h[5], h[6], h[7]] == [r["n_defects"], r["affected_area_m2"], r["element_share_pct"],
-                                                        r["footprint_area_m2"], r["volume_low_m3"], r["volume_high_m3"]]
+    totals = {(r["element"], r["highest class"]): r for r in t.table(["element", "highest class"])}
+    csv_totals = [r for r in rows if r["row_kind"] == "element_total"]
+    assert len(totals) == len(csv_totals) > 0
+    for r in csv_totals:
+        h = totals[(r["element"], r["class"])]
+        assert int(h["defects"]) == int(r["n_defects"])
+        for col, key in (("affected", "affected_area_m2"), ("share", "element_share_pct"), ("footprint", "footprint_area_m2")):
+            assert _number(h[col]) == pytest.approx(float(r[key]), abs=6e-4), col
+        low, high = h["volume"].split()[0].split("-")
+        assert (float(low), float(high)) == pytest.approx((float(r["volume_low_m3"]), float(r["volume_high_m3"])), abs=6e-5)
+    zones = {r["zone"]: r for r in t.table(["zone", "element", "class"])}
+    csv_zones = [r for r in rows if r["row_kind"] == "zone"]
+    assert set(zones) == {r["zone_id"] for r in csv_zones}
+    for r in csv_zones:
+        h = zones[r["zone_id"]]
+        assert _number(h["contour"]) == pytest.approx(float(r["contour_area_m2"]), abs=6e-5)
+        assert _number(h["outline"]) == pytest.approx(float(r["outline_area_m2"]), abs=6e-5)
+        assert _number(h["confidence"]) == pytest.approx(float(r["confidence"]), abs=6e-3)
+    defects = t.table(["defect", "element", "highest class"])
+    assert sorted(d["defect"] for d in defects) == sorted(r["defect_id"] for r in rows if r["row_kind"] == "defect")
 
 
-def test_report_loads_in_headless_chromium(written: dict, tmp_path: Path) -> None:
+def _loads_in_chromium(page: Path, tmp_path: Path) -> None:
+    """A screenshot of ``page`` in headless Chromium, with no console error (skipped without Chromium)."""
     browser = shutil.which("chromium") or shutil.which("chromium-browser")
     if browser is None:
         pytest.skip("Chromium not installed")
-    shot = tmp_path / "report.png"
+    shot = tmp_path / "page.png"
     done = subprocess.run(
         [browser, "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
          "--disable-component-update", "--disable-sync", "--no-first-run", f"--user-data-dir={tmp_path / 'profile'}",
-         "--enable-logging=stderr", "--log-level=0",
-         f"--screenshot={shot}", "--window-size=1200,2000", written["paths"]["html"].as_uri()],
+         "--enable-logging=stderr", "--log-level=0", "--allow-file-access-from-files",
+         f"--screenshot={shot}", "--window-size=1200,2000", page.as_uri()],
         capture_output=True, text=True, timeout=120)
     assert done.returncode == 0, done.stderr[-2000:]
     assert shot.exists() and shot.stat().st_size > 10000
     console = [line for line in done.stderr.splitlines() if "CONSOLE" in line]
     assert not [line for line in console if "error" in line.lower() or "Uncaught" in line], console
+
+
+def test_report_loads_in_headless_chromium(written: dict, tmp_path: Path) -> None:
+    _loads_in_chromium(written["paths"]["html"], tmp_path)
 
 
 def test_no_pictures_writes_none(demo: dict, tmp_path: Path) -> None:
@@ -191,3 +273,76 @@ def test_pictures_on_two_processes_equal_those_on_one(demo: dict) -> None:
     assert len(one) >= 8  # enough pictures that two processes are used
     assert all(two[k] == one[k] for k in one)
     assert sum(seen) == len(one)
+
+
+PY_WORDS = re.compile(r"\b(?:nan|NaN|None|True|False|inf)\b")
+
+
+def _visible_text(html_text: str) -> str:
+    c = _Checker()
+    c.feed(html_text)
+    return " ".join(c.text)
+
+
+def test_no_python_values_in_anything_a_person_reads(written: dict) -> None:
+    # the text and HTML reports and the quantities CSV: '-' or a word, never a Python value
+    paths = written["paths"]
+    for key in ("report", "quantities-csv"):
+        found = PY_WORDS.findall(paths[key].read_text(encoding="utf-8"))
+        assert not found, (key, found[:5])
+    assert not PY_WORDS.findall(_visible_text(paths["html"].read_text(encoding="utf-8")))
+
+
+def test_text_report_defect_rows_read_as_the_csv(written: dict) -> None:
+    rows = [r for r in csv.DictReader(written["paths"]["quantities-csv"].open()) if r["row_kind"] == "defect"]
+    lines = written["paths"]["report"].read_text(encoding="utf-8").splitlines()
+    for r in rows:
+        line = next(x for x in lines if x.split()[:1] == [r["defect_id"]])
+        assert f"{float(r['affected_area_m2']):.4f} m2" in line and f" {r['class']} " in line
+        assert f"{float(r['depth_low_m']):.3f}-{float(r['depth_high_m']):.3f} m" in line  # depths in m, as the CSV
+
+
+@pytest.fixture(scope="module")
+def folder_report(demo: dict, tmp_path_factory: pytest.TempPathFactory) -> dict:
+    # a campaign-sized report without a campaign's run time: the page limit lowered below the demo's scans
+    from overlay import report_html
+
+    out = tmp_path_factory.mktemp("folder")
+    limit = report_html.PAGE_LIMIT_SCANS
+    report_html.PAGE_LIMIT_SCANS = 2
+    try:
+        paths = write_outputs(demo["result"], out, pdf=False).paths
+    finally:
+        report_html.PAGE_LIMIT_SCANS = limit
+    return {"paths": paths, "result": demo["result"], "out": out}
+
+
+def test_large_report_is_a_folder_of_pages_with_linked_pictures(folder_report: dict) -> None:
+    paths, result = folder_report["paths"], folder_report["result"]
+    index = paths["html"]
+    assert index.name == "index.html" and index.parent.name == f"{result.site.basename}-report"
+    assert not (folder_report["out"] / f"{result.site.basename}-report.html").exists()
+    pages = sorted(index.parent.glob("*.html"))
+    assert len(pages) == 1 + len({s.element for s in result.scans})
+    linked: set[str] = set()
+    for page in pages:
+        text = page.read_text(encoding="utf-8")
+        c = _Checker()
+        c.feed(text)
+        c.close()
+        assert c.errors == [] and c.stack == [], page.name
+        assert "data:image" not in text  # pictures are files, not embedded
+        for url in c.urls:
+            assert (page.parent / url).resolve().is_file(), (page.name, url)  # every link resolves
+            linked.add((page.parent / url).resolve().name)
+        body = " ".join(c.text)
+        for caution in CAUTIONS:
+            assert caution in body, page.name
+        assert not PY_WORDS.findall(body), page.name
+    # every picture of the run is shown on some page, and every element page is linked from the index
+    assert {p.name for p in paths["pictures"].glob("*.png")} <= linked
+    assert {p.name for p in pages} - {"index.html"} <= linked
+
+
+def test_folder_report_loads_in_headless_chromium(folder_report: dict, tmp_path: Path) -> None:
+    _loads_in_chromium(folder_report["paths"]["html"], tmp_path)

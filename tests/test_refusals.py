@@ -55,9 +55,11 @@ def files(folder: Path) -> list[Path]:
 
 
 def err_line(capsys: pytest.CaptureFixture) -> str:
-    err = capsys.readouterr().err.strip()
-    assert err.startswith("overlay: error:") and len(err.splitlines()) == 1, err
-    return err
+    """The one error line; any evidence below it (a fit's residual table) is indented."""
+    first, *evidence = capsys.readouterr().err.strip("\n").splitlines()
+    assert first.startswith("overlay: error:"), first
+    assert all(line.startswith("    ") for line in evidence), evidence
+    return first
 
 
 def run(site: Path, out: Path, *extra: str) -> int:

@@ -13,13 +13,15 @@ from ..report import run_report
 from ..site import Site
 
 
-def add_output_options(p: argparse.ArgumentParser, default_out: str) -> None:
+def add_output_options(p: argparse.ArgumentParser, default_out: str, *, overwrite_option: bool = True) -> None:
     p.add_argument("--out", metavar="DIR", type=Path, default=Path(default_out), help=f"folder for the outputs (default: {default_out})")
-    p.add_argument("--overwrite", action="store_true", help="replace outputs of an earlier run in the same folder")
+    if overwrite_option:
+        p.add_argument("--overwrite", action="store_true", help="replace outputs of an earlier run in the same folder")
     p.add_argument("--accept-misfit", action="store_true",
                    help="go on when a target fit exceeds the tolerance (recorded in the outputs)")
-    p.add_argument("-q", "--quiet", action="store_true", help="print only the output paths")
-    p.add_argument("--no-pictures", action="store_true", help="skip the previews, zone sheets and HTML site report")
+    p.add_argument("-q", "--quiet", action="store_true",
+                   help="print only the paths written, one per line (errors still go to stderr)")
+    p.add_argument("--no-pictures", action="store_true", help="skip the pictures and the HTML report")
     p.add_argument("--pdf", action="store_true", default=None,
                    help="print the site report to PDF, or fail (default: when headless Chromium is installed)")
     p.add_argument("--no-pdf", dest="pdf", action="store_false", help="no PDF of the site report")
@@ -56,8 +58,10 @@ def run_and_write(site: Site, out: Path, args: argparse.Namespace, *, overwrite:
     finally:
         points.close()
         scans.close()
-    for f in c.failures:  # one line per failed scan, as for any error
+    for f in c.failures:  # one line per failed scan, as for any error, and its evidence below it
         print(f"overlay: error: {f.message}", file=sys.stderr)
+        for line in f.details:
+            print(f"    {line}", file=sys.stderr)
     if c.result is None:
         return c.exit_code or 3
     n_pictures = len(picture_names(c.result, "dxf" in c.result.site.formats)) if not args.no_pictures else 0
@@ -66,12 +70,17 @@ def run_and_write(site: Site, out: Path, args: argparse.Namespace, *, overwrite:
         written = write_outputs(c.result, out, overwrite=overwrite, pictures=not args.no_pictures, pdf=args.pdf,
                                 jobs=args.jobs, progress=drawn.update, merge=not args.no_merge,
                                 replace_findings=args.replace_findings)
-    if not args.quiet:
-        print(run_report(c.result))
+    m = written.merge
+    if args.quiet:
+        for p in written.paths.values():
+            print(p)
+        if m is not None:
+            print(m.target)
+        return c.exit_code
+    print(run_report(c.result))
     print("written:")
     for p in written.paths.values():
         print(f"  {p}")
-    m = written.merge
     if m is not None:
         print(f"merged into {m.target} layer {m.layer}: {m.added} row(s) of this run"
               f" ({m.replaced} earlier row(s) of the same scans replaced, {m.kept} other row(s) kept)"

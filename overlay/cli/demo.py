@@ -15,7 +15,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("demo", help="generate the demo overpass and run the main job on it",
                        description="Generate the invented demo site (scan bundles, truth file, as-built DXF, asset "
                        "GeoPackage) into OUT/site, then run it into OUT/results. Reruns replace both.")
-    add_output_options(p, "demo-out")
+    add_output_options(p, "demo-out", overwrite_option=False)  # a rerun always replaces the demo's folder
     p.set_defaults(func=execute)
 
 

@@ -1,6 +1,6 @@
 """Entry point: parse, dispatch to a command module, turn errors into one line and an exit code.
 
-Exit codes (DESIGN.md §6): 0 done, 1 unexpected, 2 usage, 3 bad input,
+Exit codes (README, "Exit codes"): 0 done, 1 unexpected, 2 usage, 3 bad input,
 4 registration or CRS check failed, 5 output conflict.
 """
 
@@ -27,7 +27,7 @@ EPILOG = """exit codes: 0 done, 1 unexpected error, 2 usage, 3 bad input (bundle
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="overlay",
-        description="Suspect zones from acoustic laser-vibrometer scans of concrete, placed on as-built drawings "
+        description="Screening zones from acoustic laser-vibrometer scans of concrete, placed on as-built drawings "
         "(DXF), priced as quantities (CSV) and merged into GIS asset layers (GeoPackage).",
         epilog=EPILOG,
         formatter_class=argparse.RawDescriptionHelpFormatter,
@@ -58,6 +58,8 @@ def main(argv: Sequence[str] | None = None) -> int:
         if args.verbose:
             traceback.print_exc()
         print(f"overlay: error: {exc.line()}", file=sys.stderr)
+        for line in exc.details:  # the evidence (a failed fit's residual table), indented below the line
+            print(f"    {line}", file=sys.stderr)
         return exc.exit_code
     except (KeyboardInterrupt, Terminated):
         print("overlay: interrupted; outputs and the owner's files are as they were before the run", file=sys.stderr)

@@ -12,7 +12,7 @@ from .common import add_output_options, run_and_write
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("run", help="turn the scans of a site file into DXF, GeoPackage and quantities",
-                       description="Read every scan bundle listed in SITE, find suspect zones, register them into "
+                       description="Read every scan bundle listed in SITE, find screening zones, register them into "
                        "the drawing frame and the map CRS, and write the outputs the site file asks for.")
     p.add_argument("site", type=Path, metavar="SITE.toml", help="site file (format overlay-site/1)")
     add_output_options(p, "overlay-out")
