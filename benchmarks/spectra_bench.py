@@ -1,4 +1,4 @@
-"""Benchmark of the spectra stage (issue 3, DESIGN.md §7); figures go to docs/performance.md.
+"""Benchmark of the spectra stage (targets in docs/performance.md); figures go to docs/performance.md.
 
     .venv/bin/python benchmarks/spectra_bench.py            # 10,000 × 8,192 float32 + 4 GB memory run
     .venv/bin/python benchmarks/spectra_bench.py --no-big   # skip the 4 GB file

@@ -25,7 +25,7 @@ from .tomlio import Fields, load_toml
 FORMAT = "overlay-site/1"
 DEFAULT_CLASSES = (("watch", 6.0), ("suspect", 10.0), ("probable", 15.0))
 DEFAULT_FORMATS = ("dxf", "gpkg", "quantities-csv")
-# common practice (from memory, CHECKS.md): a repair outline extends 150 mm beyond the sounded area;
+# common practice (from memory; docs/references.md, Inspection practice): a repair outline extends 150 mm beyond the sounded area;
 # UFGS 03 93 10 asks at least 25 mm for the saw cut
 REPAIR_MARGIN_M = 0.15
 MODEL_CHOICES = ("auto", "similarity", "affine", "projective")

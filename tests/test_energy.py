@@ -10,7 +10,7 @@ from overlay.errors import SignalError
 
 
 def test_db_values() -> None:
-    # dB: 10·log10(2) = 3.0103, ratio 4 → 6.0206 (CHECKS.md, Spectra)
+    # dB: 10·log10(2) = 3.0103, ratio 4 → 6.0206 (docs/references.md, Spectra)
     np.testing.assert_allclose(ver_db(np.array([2.0, 4.0, 1.0]), 1.0), [3.0103, 6.0206, 0.0], atol=1e-4)
 
 

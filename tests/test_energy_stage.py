@@ -1,4 +1,4 @@
-"""The energy stage inside a run: gate refusals, quality floors, references, incidence (exit codes of DESIGN.md §6)."""
+"""The energy stage inside a run: gate refusals, quality floors, references, incidence (exit codes of the README)."""
 
 from __future__ import annotations
 

@@ -14,7 +14,7 @@ from overlay.registration import cos_incidence_from_homography, pinhole_to_surfa
 from overlay.transforms import Affine, Projective
 
 # EPSG Guidance Note 7-2, method 9624 (affine parametric), Jamaica 1875 / Old Grid (ft) →
-# JAD69 / Jamaica National Grid (m) (CHECKS.md)
+# JAD69 / Jamaica National Grid (m) (docs/references.md)
 JAM = Affine(82357.457, 0.304794369, 0.000015417425, 28091.324, -0.000015417425, 0.304794369)
 
 

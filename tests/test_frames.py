@@ -103,7 +103,7 @@ def test_compose_equals_sequence() -> None:
 
 def test_gn72_transverse_mercator_through_our_crs_path() -> None:
     # EPSG Guidance Note 7-2, method 9807, OSGB 1936 / British National Grid (EPSG:27700) from EPSG:4277:
-    # 50°30'00"N, 0°30'00"E → E 577274.99, N 69740.50 (0.02 m); inverse to 1e-7° (CHECKS.md)
+    # 50°30'00"N, 0°30'00"E → E 577274.99, N 69740.50 (0.02 m); inverse to 1e-7° (docs/references.md)
     e, n = transform_xy(np.array([0.5, 50.5]), "EPSG:4277", 27700)
     assert e == pytest.approx(577274.99, abs=0.02)
     assert n == pytest.approx(69740.50, abs=0.02)
@@ -143,7 +143,7 @@ def test_map_crs_must_be_projected_metric_and_cover_site() -> None:
 
 def test_gn72_lambert_conic_2sp_through_our_crs_path() -> None:
     # EPSG Guidance Note 7-2, method 9802, NAD27 / Texas South Central (EPSG:32040) from EPSG:4267:
-    # 28°30'N, 96°W → E 2963503.91, N 254759.80 US survey feet (0.01 ftUS) (CHECKS.md) — a foot mix-up
+    # 28°30'N, 96°W → E 2963503.91, N 254759.80 US survey feet (0.01 ftUS) (docs/references.md) — a foot mix-up
     # would show as a factor 0.3048
     e, n = transform_xy(np.array([-96.0, 28.5]), "EPSG:4267", "EPSG:32040")
     assert e == pytest.approx(2963503.91, abs=0.01) and n == pytest.approx(254759.80, abs=0.01)

@@ -9,10 +9,10 @@ from overlay.gate import make_gate, speed_of_sound, window_from_geometry
 
 
 def test_speed_of_sound_formula() -> None:
-    # c = 331.3·sqrt(1 + T/273.15) m/s (CHECKS.md, Air; recomputed formula): 331.3 at 0 °C, 343.21 at 20 °C
+    # c = 331.3·sqrt(1 + T/273.15) m/s (docs/references.md, Air; recomputed formula): 331.3 at 0 °C, 343.21 at 20 °C
     assert speed_of_sound(0.0) == pytest.approx(331.3, abs=1e-9)
     assert speed_of_sound(20.0) == pytest.approx(343.21, abs=0.01)
-    # handbook values spread about ±0.7 m/s around 343.2 at 20 °C (CHECKS.md)
+    # handbook values spread about ±0.7 m/s around 343.2 at 20 °C (docs/references.md)
     assert abs(speed_of_sound(20.0) - 343.2) < 0.7
 
 

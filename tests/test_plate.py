@@ -16,19 +16,19 @@ from overlay.plate import (
 
 def test_clamped_root_against_leissa() -> None:
     # root of J0·I1 + I0·J1 = 0 recomputed with scipy.special: λ = 3.196221, λ² = 10.2158
-    # (Leissa, Vibration of Plates, NASA SP-160, 1969, Table 2.1) (CHECKS.md, 1e-4)
+    # (Leissa, Vibration of Plates, NASA SP-160, 1969, Table 2.1) (docs/references.md, Thin plates; 1e-4)
     assert clamped_lambda() == pytest.approx(3.196221, abs=1e-6)
     assert clamped_lambda() ** 2 == pytest.approx(10.2158, abs=1e-4)
 
 
 @pytest.mark.parametrize("nu, lam2", [(0.0, 4.4436), (0.2, 4.7826), (0.25, 4.8601), (0.3, 4.9351), (0.5, 5.2127)])
 def test_simply_supported_roots(nu: float, lam2: float) -> None:
-    # J1/J0 + I1/I0 = 2λ/(1−ν); values of Leissa & Narita, J. Sound Vib. 70(2) 1980 (CHECKS.md)
+    # J1/J0 + I1/I0 = 2λ/(1−ν); values of Leissa & Narita, J. Sound Vib. 70(2) 1980 (docs/references.md)
     assert simply_supported_lambda(nu) ** 2 == pytest.approx(lam2, abs=2e-4)
 
 
 def test_aci318_modulus() -> None:
-    # ACI 318: Ec = 4700·sqrt(f'c) MPa: 28 MPa → 24870, 30 → 25743, 35 → 27806 (CHECKS.md)
+    # ACI 318: Ec = 4700·sqrt(f'c) MPa: 28 MPa → 24870, 30 → 25743, 35 → 27806 (docs/references.md)
     assert aci318_modulus_pa(28) / 1e6 == pytest.approx(24870, abs=1)
     assert aci318_modulus_pa(30) / 1e6 == pytest.approx(25743, abs=1)
     assert aci318_modulus_pa(35) / 1e6 == pytest.approx(27806, abs=1)

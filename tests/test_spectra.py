@@ -51,7 +51,7 @@ def _gate(n: int) -> Gate:
 
 
 def test_parseval_sine_in_band() -> None:
-    # Parseval: a sine of amplitude A carries A²/2 mean square; A = 2 → 2.000 (1e-3) (CHECKS.md, Spectra)
+    # Parseval: a sine of amplitude A carries A²/2 mean square; A = 2 → 2.000 (1e-3) (docs/references.md, Spectra)
     n = 4096
     t = np.arange(n) / FS
     x = (2.0 * np.sin(2 * np.pi * 2000.0 * t)).astype(np.float32)[None, :]
@@ -60,7 +60,7 @@ def test_parseval_sine_in_band() -> None:
 
 
 def test_parseval_white_noise_full_band() -> None:
-    # white noise σ = 0.5 integrates to σ² = 0.25 over 0..fs/2 (2 % with a fixed seed) (CHECKS.md)
+    # white noise σ = 0.5 integrates to σ² = 0.25 over 0..fs/2 (2 % with a fixed seed) (docs/references.md)
     x = np.random.default_rng(6).normal(0, 0.5, (64, 4096)).astype(np.float32)
     sp = records_spectra(x, _gate(4096), (0.0, FS / 2))
     assert np.mean(sp.energy) == pytest.approx(0.25, rel=0.02)

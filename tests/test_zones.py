@@ -133,7 +133,7 @@ def test_footprint_hand_worked() -> None:
 
 @pytest.mark.parametrize("margin", [0.025, 0.15, 0.30])
 def test_footprint_contains_grown_outline_with_right_angles(margin: float) -> None:
-    # UFGS 03 93 10: saw cut outside the repair area, no angles under 90° (CHECKS.md) — the footprint
+    # UFGS 03 93 10: saw cut outside the repair area, no angles under 90° (docs/references.md) — the footprint
     # contains the outline grown by the margin, its corners are right angles, it grows with the margin
     outline = Polygon([(0, 0), (0.8, 0.1), (1.0, 0.6), (0.3, 0.9), (-0.1, 0.5)])
     rect, _, _ = repair_footprint(outline, margin, "rotated")
