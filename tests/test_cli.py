@@ -290,3 +290,16 @@ def test_site_file_errors_name_the_line(site: Path, capsys: pytest.CaptureFixtur
     err = capsys.readouterr().err.strip()
     line = text.splitlines().index("tolerance_m = 0.01") + 1
     assert f"site.toml: line {line}, registration.tolerance_m: must be positive" in err, err
+
+
+def test_parsing_the_command_line_imports_no_heavy_library() -> None:
+    # `overlay --help` and `--version` start at once: the numeric and GIS libraries are imported when a
+    # command runs, not to parse its arguments (start-up time itself is measured in benchmarks/, not here)
+    import subprocess
+    import sys
+
+    code = ("import sys, overlay, overlay.cli.main as m; m.build_parser(); "
+            "print(sorted(x for x in ('numpy', 'scipy', 'pandas', 'geopandas', 'matplotlib', 'shapely', 'pyproj', "
+            "'ezdxf', 'pyogrio') if x in sys.modules))")
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert done.stdout.strip() == "[]", done.stdout

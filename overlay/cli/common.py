@@ -5,12 +5,10 @@ from __future__ import annotations
 import argparse
 import sys
 from pathlib import Path
-from tqdm import tqdm
+from typing import TYPE_CHECKING
 
-from ..outputs import check_out_dir, picture_names, write_outputs
-from ..campaign import run_campaign, summary
-from ..report import run_report
-from ..site import Site
+if TYPE_CHECKING:  # the library is imported when a command runs, not to parse its arguments
+    from ..site import Site
 
 
 def add_output_options(p: argparse.ArgumentParser, default_out: str, *, overwrite_option: bool = True) -> None:
@@ -40,6 +38,12 @@ def add_output_options(p: argparse.ArgumentParser, default_out: str, *, overwrit
 
 def run_and_write(site: Site, out: Path, args: argparse.Namespace, *, overwrite: bool) -> int:
     """Process the site (in parallel, cached), write outputs, print the report and the summary; exit code."""
+    from tqdm import tqdm
+
+    from ..campaign import run_campaign, summary
+    from ..outputs import check_out_dir, picture_names, write_outputs
+    from ..report import run_report
+
     hide = True if args.quiet else None  # None: tqdm shows bars on a terminal only
     scans = tqdm(total=len(site.scans), desc="scans ", unit="scan", disable=hide, file=sys.stderr, position=0)
     single = args.jobs <= 1 and not args.dask

@@ -6,8 +6,6 @@ import argparse
 import dataclasses
 from pathlib import Path
 
-from ..demo import generate
-from ..site import read_site
 from .common import add_output_options, run_and_write
 
 
@@ -20,6 +18,9 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 
 def execute(args: argparse.Namespace) -> int:
+    from ..demo import generate
+    from ..site import read_site
+
     out: Path = args.out
     site_path = generate(out / "site")
     if not args.quiet:

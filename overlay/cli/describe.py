@@ -5,11 +5,10 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-import numpy as np
+from typing import TYPE_CHECKING
 
-from ..bundle import Scan, read_bundle
-from ..gate import Gate
-from ..pipeline import choose_gate, scan_grid
+if TYPE_CHECKING:  # the command's own imports wait until it runs: `overlay --help` starts at once
+    from ..bundle import Scan
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
@@ -20,6 +19,9 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 def summary(scan: Scan) -> str:
     """The bundle in a dozen lines."""
+    import numpy as np
+
+    from ..pipeline import choose_gate, scan_grid
     unit = "m" if scan.kind == "surface" else "deg"
     lo, hi = scan.xy.min(axis=0), scan.xy.max(axis=0)
     lines = [
@@ -41,7 +43,7 @@ def summary(scan: Scan) -> str:
         lines.append(f"  records     {scan.records.shape} {scan.records.dtype}, {scan.n_shots} shot(s), "
                      f"{scan.sample_rate_hz:g} Hz, {scan.n_samples / scan.sample_rate_hz * 1e3:.2f} ms")
         try:
-            gate: Gate = choose_gate(scan)
+            gate = choose_gate(scan)
             lines.append(f"  gate        {gate.describe()}")
         except Exception as exc:
             lines.append(f"  gate        unusable: {exc}")
@@ -58,5 +60,7 @@ def summary(scan: Scan) -> str:
 
 
 def execute(args: argparse.Namespace) -> int:
+    from ..bundle import read_bundle
+
     print(summary(read_bundle(args.bundle)))
     return 0

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import argparse
 
-from ..exporters import load_exporters
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
@@ -13,6 +12,8 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 
 def execute(args: argparse.Namespace) -> int:
+    from ..exporters import load_exporters
+
     usable, broken = load_exporters()
     for name, e in sorted(usable.items()):
         print(f"{name:<16} {e.suffix:<18} {e.description}")

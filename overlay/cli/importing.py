@@ -6,9 +6,7 @@ import argparse
 
 from pathlib import Path
 
-from ..bundle import read_bundle
 from ..errors import SiteFileError, UsageError
-from ..importers import load_importers, write_bundle
 from ..tomlio import tomllib
 
 
@@ -54,6 +52,9 @@ def _columns(args: argparse.Namespace) -> dict[str, str]:
 
 
 def execute(args: argparse.Namespace) -> int:
+    from ..bundle import read_bundle
+    from ..importers import load_importers, write_bundle
+
     usable, broken = load_importers()
     if args.list:
         for name, imp in sorted(usable.items()):

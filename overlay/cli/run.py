@@ -6,7 +6,6 @@ import argparse
 import dataclasses
 from pathlib import Path
 
-from ..site import read_site
 from .common import add_output_options, run_and_write
 
 
@@ -20,6 +19,8 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 
 def execute(args: argparse.Namespace) -> int:
+    from ..site import read_site
+
     site = read_site(args.site)
     if args.accept_misfit:
         site = dataclasses.replace(site, accept_misfit=True)
