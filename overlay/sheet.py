@@ -287,14 +287,14 @@ def add_sheets(doc: "Drawing", result: "RunResult", plan: SheetPlan, layer: str,
             vp = pen.viewport(plan.overview, plan.model, plan.per_mm)
             vp.frozen_layers = [f"{style.prefix}-NOTE"]  # the sheet has its own legend and cautions
             pen.text(f"Overview 1:{plan.scale}", plan.overview.x0, plan.overview.y1 + 1.5, 2.5)
-            _details_on(pen, result, plan, 1, move)
+            _details_on(pen, result, plan, 1, move, style.note_height_mm)
             _schedule(pen, rows[:per_page], plan.schedule, len(rows))
             _side(pen, result, plan)
             if plan.left_out:
                 pen.text(f"{plan.left_out} scan(s) with zones have no detail view here; see the site report",
                          plan.schedule.x0, plan.schedule.y0 - 3.5, 1.8)
         elif k <= n_extra:
-            _details_on(pen, result, plan, k + 1, move)
+            _details_on(pen, result, plan, k + 1, move, style.note_height_mm)
         else:
             start = per_page + (k - 1 - n_extra) * full_rows
             region = Region(FRAME_MM[0] + GAP, FRAME_MM[1] + 50.0, plan.width_mm - FRAME_MM[2] - GAP,
@@ -309,9 +309,11 @@ def _frame(pen: _Pen, plan: SheetPlan) -> None:
     pen.rect(Region(left, bottom, plan.width_mm - right, plan.height_mm - top), lineweight=50)
 
 
-def _details_on(pen: _Pen, result: "RunResult", plan: SheetPlan, sheet_no: int, move: Callable[[Any], Any]) -> None:
+def _details_on(pen: _Pen, result: "RunResult", plan: SheetPlan, sheet_no: int, move: Callable[[Any], Any],
+                symbol_mm: float) -> None:
     """Detail viewports; the model's labels (sized for the overview) are frozen in them and each defect
-    gets a paper-space label of its own at 2.5 mm, placed clear of the others inside the view."""
+    gets a paper-space label of its own at 2.5 mm, placed clear of the others, of their leaders and of
+    the target symbols (``symbol_mm`` half-size on paper at the overview scale) inside the view."""
     prefix = result.site.dxf.prefix
     text_layers = [f"{prefix}-{c.name.upper()}-TEXT" for c in result.site.classes]
     found = defects(result.zones, result.site.classes)
@@ -323,11 +325,15 @@ def _details_on(pen: _Pen, result: "RunResult", plan: SheetPlan, sheet_no: int, 
         vp.frozen_layers = [*text_layers, f"{prefix}-NOTE", f"{prefix}-ANNOTATION", f"{prefix}-DETAIL"]
         pen.text(f"{d.name}  scan {d.scan_id}  1:{d.scale}", d.paper.x0, d.paper.y0 - 4.0, NOTE_MM)
         mine = [f for f in found if d.scan_id in f.lowest.scan_id.split(";")]
-        _paper_labels(pen, mine, d, per_mm, move, prefix)
+        half = symbol_mm * plan.per_mm  # a target symbol's half-size in model units
+        targets = [shapely.box(x - half, y - half, x + half, y + half)
+                   for s in result.scans for t in s.targets
+                   for x, y in [move(shapely.Point(t.drawing)).coords[0]]]
+        _paper_labels(pen, mine, d, per_mm, move, prefix, targets)
 
 
 def _paper_labels(pen: _Pen, found: Sequence[Any], d: Detail, per_mm: float, move: Callable[[Any], Any],
-                  prefix: str) -> None:
+                  prefix: str, symbols: Sequence[Any] = ()) -> None:
     cx, cy = d.model.centre
     px, py = d.paper.centre
 
@@ -338,10 +344,11 @@ def _paper_labels(pen: _Pen, found: Sequence[Any], d: Detail, per_mm: float, mov
     r = d.paper
     frame = shapely.box(r.x0, r.y0, r.x1, r.y1)
     walls = [shapely.box(r.x0 - 1e4, r.y0 - 1e4, r.x1 + 1e4, r.y1 + 1e4).difference(frame)]  # keep labels inside
+    walls += [b for b in (to_paper(g) for g in symbols) if b.intersects(frame)]
     items = []
     for f in found:
         zone = to_paper(f.lowest.defect if not f.lowest.defect.is_empty else f.lowest.contour)
-        items.append(Item(f.defect_id, zone.intersection(frame), pen.width(f.defect_id, LABEL_MM) * 1.05,
+        items.append(Item(f.defect_id, zone.intersection(frame), pen.width(f.defect_id, LABEL_MM),
                           LABEL_MM * 1.35))
     for it, p in zip(items, place_labels([it for it in items if not it.zone.is_empty], 1.0, walls)
                      if any(not it.zone.is_empty for it in items) else []):

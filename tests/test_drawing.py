@@ -68,7 +68,24 @@ def _check_labels(doc, result) -> int:
         for other, z in zone.items():
             if other != k:
                 assert not box.intersects(z), (k, other)
+    layers = {layer_names(c.name)["text"] for c in result.site.classes}
+    leaders = [shapely.LineString([e.dxf.start.vec2, e.dxf.end.vec2]) for e in doc.modelspace().query("LINE")
+               if e.dxf.layer in layers]
+    h = min(b.bounds[3] - b.bounds[1] for b in boxes.values()) / 2  # half a (two-line) label's height
+    for line in leaders:  # a leader reaches its own label (to within half a line) and crosses no other
+        near = sorted(boxes.values(), key=line.distance)
+        assert line.distance(near[0]) <= h / 2 and not any(line.intersects(b) for b in near[1:]), line
+    assert len(leaders) == sum(1 for d in found if not boxes[d.defect_id].intersects(zone[d.defect_id]))
     return len(boxes)
+
+
+def _text_box(t) -> shapely.Polygon:
+    """A TEXT entity's box from ezdxf's own measurement of its font (left-aligned, unrotated text)."""
+    from ezdxf.tools.text_size import text_size
+
+    size = text_size(t)
+    x, y = t.dxf.insert[0], t.dxf.insert[1]
+    return shapely.box(x, y - (size.total_height - size.cap_height), x + size.width, y + size.cap_height)
 
 
 def test_audit_clean_for_a_new_drawing_and_onto_the_owners(drawn: dict, demo: dict, tmp_path: Path) -> None:
@@ -100,6 +117,18 @@ def test_fills_by_layer_in_the_class_colour_and_a_dashed_defect_outline(drawn: d
 
 def test_one_label_per_defect_clear_of_each_other_and_of_other_defects(drawn: dict) -> None:
     assert _check_labels(drawn["doc"], drawn["result"]) == 6
+
+
+def test_scan_and_target_names_clear_of_each_other_and_of_the_labels(drawn: dict) -> None:
+    doc, result = drawn["doc"], drawn["result"]
+    names = [t for t in doc.modelspace().query("TEXT") if t.dxf.layer == fixed_layers()["annotation"]]
+    targets = {t.name for s in result.scans for t in s.targets}
+    assert {t.dxf.text for t in names} == targets | {f"scan {s.scan_id}" for s in result.scans}  # each once
+    boxes = [_text_box(t) for t in names]
+    for i, a in enumerate(boxes):
+        assert all(a.intersection(b).area <= 1e-9 for b in boxes[i + 1:]), names[i].dxf.text
+    labels = list(_label_boxes(doc, result).values())
+    assert not any(a.intersects(b) for a in boxes for b in labels)
 
 
 def test_tag_attributes_hidden_on_the_class_text_layer(drawn: dict) -> None:
@@ -170,6 +199,35 @@ def test_the_sheet_shows_the_structure_at_the_plot_scale_with_the_schedule(drawn
         cells = printed[r["defect_id"]]
         assert cells[1] == r["element"] and cells[2] == r["class"]
         assert cells[3] == f"{float(r['affected_area_m2']):.3f}" and cells[5] == f"{float(r['footprint_area_m2']):.3f}"
+
+
+def test_detail_labels_clear_of_each_other_their_leaders_and_the_target_symbols(drawn: dict) -> None:
+    doc, result = drawn["doc"], drawn["result"]
+    sheet = next(lo for lo in doc.layouts if lo.name.startswith("OVL "))
+    layers = {layer_names(c.name)["text"] for c in result.site.classes}
+    labels = [_text_box(t) for t in sheet.query("TEXT") if t.dxf.layer in layers]
+    leaders = [shapely.LineString([e.dxf.start.vec2, e.dxf.end.vec2]) for e in sheet.query("LINE") if e.dxf.layer in layers]
+    assert len(labels) >= len(defects(result.zones, result.site.classes))  # each defect in at least one detail
+    for i, a in enumerate(labels):
+        assert all(a.intersection(b).area <= 1e-9 for b in labels[i + 1:])
+    for line in leaders:
+        near = sorted(labels, key=line.distance)  # its own label (within 0.5 mm), and it crosses no other
+        assert line.distance(near[0]) <= 0.5 and not any(line.intersects(b) for b in near[1:])
+    # the target symbols as the detail views show them: model points through each viewport onto paper
+    views = [v for v in sheet.query("VIEWPORT") if v.dxf.get("id", 0) != 1]
+    n = _plot_scale(doc)
+    half = 1.8 * n / 1000.0  # a symbol's half-size in model metres (1.8 mm note height at the plot scale)
+    for v in views:
+        k = v.dxf.height / v.dxf.view_height  # paper mm per model metre
+        cx, cy = v.dxf.view_center_point.vec2
+        px, py = v.dxf.center.vec2
+        frame = shapely.box(px - v.dxf.width / 2, py - v.dxf.height / 2, px + v.dxf.width / 2, py + v.dxf.height / 2)
+        for s in result.scans:
+            for t in s.targets:
+                x, y = px + (t.drawing[0] - cx) * k, py + (t.drawing[1] - cy) * k
+                symbol = shapely.box(x - half * k, y - half * k, x + half * k, y + half * k)
+                if symbol.intersects(frame):
+                    assert not any(symbol.intersects(b) for b in labels), t.name
 
 
 def test_ogr_reads_hatch_colours_and_labels(drawn: dict) -> None:

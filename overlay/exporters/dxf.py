@@ -30,7 +30,7 @@ import shapely.affinity
 from ezdxf import bbox, const, zoom
 from ezdxf.document import Drawing
 from ezdxf.fonts import fonts
-from shapely.geometry import Polygon
+from shapely.geometry import LineString, Polygon
 
 from .. import palette, sheet
 from ..cautions import CAUTIONS
@@ -191,8 +191,12 @@ class DxfExporter:
         for zone in result.zones:
             if zone.defect_id == zone.zone_id:
                 _defect(msp, zone, move, fixed)
-        _scans(msp, result, move, fixed, text, style, k)
-        _labels(msp, result, move, style, text, _text_boxes(msp))
+        _scans(msp, result, move, fixed, text, k)
+        around = _text_boxes(msp)  # the owner's text and our target symbols
+        placed = _labels(msp, result, move, style, text, around)
+        zones = [move(z.contour) for z in result.zones] + [move(z.defect) for z in result.zones if not z.defect.is_empty]
+        leaders = [LineString([p.anchor, leader_end(p.box, p.anchor)]) for p in placed if not p.inside]
+        _names(msp, result, move, fixed, text, style, k, around + [p.box for p in placed] + leaders + zones)
         _legend_and_note(msp, result, style, text, _bounds([], bbox.extents(msp)))
         sheet.callouts(msp, plan, fixed["detail"], text.note, style.text_style)
         for e in msp:  # mark everything we drew, so a rerun can take it away again
@@ -307,24 +311,43 @@ def _defect(msp: Any, zone: "Zone", move: Any, fixed: dict[str, str]) -> None:
                          (1000, f"footprint_width_m={zone.footprint_width_m:.3f}")])
 
 
-def _scans(msp: Any, result: "RunResult", move: Any, fixed: dict[str, str], text: Lettering, style: "DxfStyle",
-           k: float) -> None:
+def _scans(msp: Any, result: "RunResult", move: Any, fixed: dict[str, str], text: Lettering, k: float) -> None:
+    """Scan extents and target symbols; their names are placed after the defect labels (_names)."""
     h = text.note
     for scan in result.scans:
         if not scan.extent.is_empty:
             ext = move(scan.extent)
             msp.add_lwpolyline(list(ext.exterior.coords)[:-1], close=True, dxfattribs={"layer": fixed["extent"]})
-            x0, _, _, y1 = ext.bounds
-            msp.add_text(clean_text(f"scan {scan.scan_id}"), height=h,
-                         dxfattribs={"layer": fixed["annotation"], "style": style.text_style}).set_placement(
-                (x0, y1 + h * 0.5))
         for t in scan.targets:
             p = (t.drawing[0] * k, t.drawing[1] * k)
             msp.add_circle(p, radius=h * 0.6, dxfattribs={"layer": fixed["control"]})
             msp.add_line((p[0] - h, p[1]), (p[0] + h, p[1]), dxfattribs={"layer": fixed["control"]})
             msp.add_line((p[0], p[1] - h), (p[0], p[1] + h), dxfattribs={"layer": fixed["control"]})
-            msp.add_text(clean_text(t.name), height=h, dxfattribs={"layer": fixed["annotation"],
-                                                                  "style": style.text_style}).set_placement((p[0] + h, p[1] + h))
+
+
+def _names(msp: Any, result: "RunResult", move: Any, fixed: dict[str, str], text: Lettering, style: "DxfStyle",
+           k: float, obstacles: list[Polygon]) -> None:
+    """Scan and target names, placed like the defect labels: clear of each other, of every label and
+    leader, of the defects' zones and of the symbols; a thin leader where a name had to move away."""
+    h = text.note
+    font = fonts.make_font(style.font, h)
+    items: list[Item] = []
+    for scan in result.scans:
+        if not scan.extent.is_empty:
+            x0, _, _, y1 = move(scan.extent).bounds
+            items.append(Item(f"scan {scan.scan_id}", shapely.box(x0, y1, x0 + h, y1 + h),
+                              font.text_width(f"scan {scan.scan_id}"), h * 1.35))
+        for t in scan.targets:
+            x, y = t.drawing[0] * k, t.drawing[1] * k
+            items.append(Item(t.name, shapely.box(x - h, y - h, x + h, y + h), font.text_width(t.name), h * 1.35))
+    unique = list({it.key: it for it in items}.values())  # a target seen by two scans is named once
+    for p in place_labels(unique, gap=h * 0.4, obstacles=obstacles):
+        x0, y0, _, _ = p.box.bounds
+        msp.add_text(clean_text(p.key), height=h, dxfattribs={"layer": fixed["annotation"], "style": style.text_style}
+                     ).set_placement((x0, y0 + 0.35 * h))
+        end = leader_end(p.box, p.anchor)
+        if not p.inside and shapely.Point(p.anchor).distance(shapely.Point(end)) > h:
+            msp.add_line(p.anchor, end, dxfattribs={"layer": fixed["annotation"]})
 
 
 def label_lines(result: "RunResult", d: Any) -> list[str]:
@@ -356,7 +379,7 @@ def _labels(msp: Any, result: "RunResult", move: Any, style: "DxfStyle", text: L
     items, lines = [], {}
     for d in found:
         body = label_lines(result, d)
-        w = max(font.text_width(line) for line in body) * 1.05
+        w = max(font.text_width(line) for line in body) * 1.05  # MTEXT measures a little wider than its words
         lines[d.defect_id] = (d, body)
         zone = move(d.lowest.defect if not d.lowest.defect.is_empty else d.lowest.contour)
         # MTEXT: cap height per line, lines 5/3 of it apart, plus the last line's descenders
