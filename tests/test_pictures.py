@@ -346,3 +346,26 @@ def test_large_report_is_a_folder_of_pages_with_linked_pictures(folder_report: d
 
 def test_folder_report_loads_in_headless_chromium(folder_report: dict, tmp_path: Path) -> None:
     _loads_in_chromium(folder_report["paths"]["html"], tmp_path)
+
+
+def test_grid_scans_are_drawn_as_images_placed_by_their_affine_lattice(demo: dict) -> None:
+    # a regular grid registered by a similarity is an affine image of (column, row): the preview draws
+    # it as an image under that map (fast), and the map puts every cell centre on its point; a
+    # projective angle scan (S-105) has no such map and stays a triangulation
+    result = demo["result"]
+    for scan in result.scans:
+        ok = scan.valid & np.isfinite(scan.ver_db)
+        grid = pictures._grid_image(scan, scan.ver_db, ok)
+        if scan.scan_id == "S-105":
+            assert grid is None
+            continue
+        assert grid is not None, scan.scan_id
+        image, to_drawing = grid
+        rc = scan.grid_rc
+        have = rc[:, 0] >= 0
+        placed = to_drawing.transform(np.column_stack([rc[have, 1], rc[have, 0]]).astype(float))
+        spacing = np.min(np.hypot(*np.diff(scan.point_xy[have][:2], axis=0).T))
+        assert np.abs(placed - scan.point_xy[have]).max() <= pictures.GRID_SLACK * spacing
+        use = have & ok
+        assert np.array_equal(image[rc[use, 0], rc[use, 1]], scan.ver_db[use])
+        assert image.mask[rc[have & ~ok, 0], rc[have & ~ok, 1]].all()  # dropouts are holes, not zeros
