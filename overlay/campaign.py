@@ -231,6 +231,10 @@ def run_campaign(
     """Process every scan of the site; failures are collected (or raised at once with ``strict``)."""
     t0 = time.perf_counter()
     started = now_utc()
+    if site.elements is not None and site.elements.database is not None:
+        from .postgis import check_register
+
+        check_register(site.elements)  # an unreachable register is found before the scans, not after
     out = CampaignResult(None)
     results: dict[int, ScanResult] = {}
     caught: list[str] = []

@@ -55,8 +55,14 @@ def is_geopackage_file(path: Path) -> bool:
 
 
 def read_asset_table(elements: "Elements") -> AssetTable:
-    """Read the asset layer: through SQLite for a GeoPackage (the merge reads it the same way under its
-    lock, so the two reads can be compared exactly), through GDAL for any other format."""
+    """Read the asset layer: through SQLite for a GeoPackage and through psycopg for a PostgreSQL
+    database (the merge reads it the same way under its lock, so the two reads can be compared
+    exactly), through GDAL for any other format."""
+    if elements.database is not None:
+        from .postgis import read_assets
+
+        return read_assets(elements)
+    assert elements.source is not None
     src = str(elements.source)
     if is_geopackage_file(elements.source):
         from .merge import WAIT_S

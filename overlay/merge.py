@@ -40,6 +40,7 @@ from .quantities import area_field, defects
 from .staging import glob_escape, part_path, remove_stale_parts
 
 if TYPE_CHECKING:
+    from .merge_postgis import OpenDbMerge
     from .pipeline import RunResult
     from .zones import Zone
 
@@ -57,9 +58,27 @@ FIELDS = {  # the findings table we create; an existing one must have KEY_FIELDS
 GEOMETRY_TYPES = ("MULTIPOLYGON", "GEOMETRY", "MULTISURFACE")
 
 
+FIELD_NOTES = {  # what each findings field means, for a database's column comments
+    "asset_id": "the owner's asset the finding lies on", "source": "who wrote the row ('overlay' for this tool)",
+    "scan_id": "the scan(s) the finding comes from; several, ';'-separated, where scans overlapped",
+    "zone_id": "the zone or defect id in the run's outputs", "defect_id": "the defect (its lowest-class zone's id)",
+    "class": "the highest class the defect reaches (basis outline) or the zone's class (basis contour)",
+    "threshold_db": "that class's vibration energy ratio level, dB", "affected_area_m2": "area of this row's outline "
+    "on the asset, m2 of the structure's surface", "basis": "outline: the estimated defect outline; contour: the "
+    "class contour", "peak_hz": "peak frequency of the zone-averaged spectrum, Hz", "depth_low_m": "depth estimate, "
+    "low end, m (order of magnitude only)", "depth_high_m": "depth estimate, high end, m (order of magnitude only)",
+    "confidence": "0-1, the product of the zone's confidence factors", "inspected": "when the scan was made (UTC)",
+    "method": "the inspection method", "run_key": "tool version and zone settings that produced the row (a hash)",
+}
+
+
+def area_note(class_name: str) -> str:
+    return f"area of the {class_name} contour on this asset, m2 (information: never add across classes)"
+
+
 @dataclass(frozen=True)
 class MergeSummary:
-    target: Path
+    target: Path | str  # the GeoPackage, or the database as a person reads it
     layer: str
     added: int
     replaced: int
@@ -149,7 +168,7 @@ def _real(v: float) -> float | None:
     return float(v) if np.isfinite(v) else None
 
 
-def _scans_of(value: object) -> set[str]:
+def scans_of(value: object) -> set[str]:
     """The scans a row belongs to (a mosaic zone lists several, "S-101;S-106")."""
     return {s for s in str(value or "").split(";") if s}
 
@@ -214,8 +233,9 @@ class OpenMerge:
 
 
 def prepare_merge(result: "RunResult", *, replace_findings: bool = False, wait_s: float | None = None,
-                  now: dt.datetime | None = None) -> OpenMerge:
+                  now: dt.datetime | None = None) -> "OpenMerge | OpenDbMerge":
     """Lock the owner's file, check, back it up and write this run's findings — everything but the commit.
+    (An asset register in PostgreSQL goes to overlay.merge_postgis, under the same rules.)
 
     Refuses (nothing changed) when the file is locked past ``wait_s`` (exit 5), when the findings
     layer is not ours to write (exit 3), when the asset layer changed since the run read it (exit 5),
@@ -225,6 +245,11 @@ def prepare_merge(result: "RunResult", *, replace_findings: bool = False, wait_s
     site = result.site
     spec, elements = site.merge, site.elements
     assert spec is not None and elements is not None and result.assets is not None
+    if elements.database is not None:
+        from .merge_postgis import prepare_merge_postgis
+
+        return prepare_merge_postgis(result, replace_findings=replace_findings, wait_s=wait_s)
+    assert elements.source is not None
     target, name = elements.source, spec.findings_layer
     check_layer_name(name, result.assets.layer, source=str(site.path))
     check_placement(result)
@@ -287,20 +312,20 @@ def _write(con: sqlite3.Connection, result: "RunResult", target: Path, name: str
         layer = existing
         _check_shape(con, layer, src)
         added_fields = tuple(gpkg_sql.add_columns(con, layer.table, fields))
-    geoms = _into(geoms, result.crs, layer.crs, src)
+    geoms = into_crs(geoms, result.crs, layer.crs, src)
     scans = {s.scan_id for s in result.scans}
     own = [(fid, sid) for fid, sid in con.execute(
         f"SELECT {gpkg_sql.quote(layer.fid)}, scan_id FROM {gpkg_sql.quote(layer.table)} WHERE source = ?", (SOURCE,))
-        if _scans_of(sid) & scans]
+        if scans_of(sid) & scans]
     if not replace:
-        _refuse_losses(own, rows, scans, target, layer.table)
+        refuse_losses(own, rows, scans, target, layer.table)
     total = con.execute(f"SELECT count(*) FROM {gpkg_sql.quote(layer.table)}").fetchone()[0]
     copy = make_backup(target, keep, now) if backup else None
     for k in range(0, len(own), 500):
         chunk = [fid for fid, _ in own[k:k + 500]]
         con.execute(f"DELETE FROM {gpkg_sql.quote(layer.table)} WHERE {gpkg_sql.quote(layer.fid)} IN "
                     f"({', '.join('?' for _ in chunk)})", chunk)
-    added = gpkg_sql.insert_features(con, layer, rows, [_as_multi(g) for g in geoms])
+    added = gpkg_sql.insert_features(con, layer, rows, [as_multi(g) for g in geoms])
     gpkg_sql.touch_contents(con, layer)
     style = findings_style(result)
     gpkg_sql.put_style(con, layer, STYLE_NAME, styles.qml(style), styles.sld(style, layer.table),
@@ -315,7 +340,7 @@ def findings_style(result: "RunResult") -> styles.LayerStyle:
         [(c.name, c.threshold_db, cls[c.name].rgb) for c in result.site.classes]))
 
 
-def _as_multi(g: Any) -> MultiPolygon:
+def as_multi(g: Any) -> MultiPolygon:
     """Findings are MultiPolygons (a piece cut by an asset can fall apart)."""
     if g.geom_type == "Polygon":
         return MultiPolygon([g])
@@ -337,7 +362,7 @@ def _check_shape(con: sqlite3.Connection, layer: gpkg_sql.Layer, src: str) -> No
                             "need MULTIPOLYGON", source=src, field="merge.findings_layer")
 
 
-def _into(geoms: list[Any], src_crs: pyproj.CRS | None, dst_crs: pyproj.CRS | None, source: str) -> list[Any]:
+def into_crs(geoms: list[Any], src_crs: pyproj.CRS | None, dst_crs: pyproj.CRS | None, source: str) -> list[Any]:
     """The findings in the CRS of the findings layer, through our transformation check."""
     if not geoms or src_crs is None or dst_crs is None or src_crs.equals(dst_crs):
         if (src_crs is None) != (dst_crs is None):
@@ -348,16 +373,16 @@ def _into(geoms: list[Any], src_crs: pyproj.CRS | None, dst_crs: pyproj.CRS | No
     return list(moved)
 
 
-def _refuse_losses(own: list[tuple[int, object]], rows: list[dict[str, Any]], scans: set[str], target: Path,
-                   table: str) -> None:
+def refuse_losses(own: list[tuple[Any, object]], rows: list[dict[str, Any]], scans: set[str], target: Path | str,
+                  table: str) -> None:
     """A rerun may replace a scan's findings, not lose them silently: more removed than added is refused."""
     removed: dict[str, int] = {}
     for _, sid in own:
-        for s in _scans_of(sid) & scans:
+        for s in scans_of(sid) & scans:
             removed[s] = removed.get(s, 0) + 1
     added: dict[str, int] = {}
     for r in rows:
-        for s in _scans_of(r["scan_id"]):
+        for s in scans_of(r["scan_id"]):
             added[s] = added.get(s, 0) + 1
     losing = sorted(s for s in removed if removed[s] > added.get(s, 0))
     if losing:

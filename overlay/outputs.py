@@ -62,7 +62,7 @@ def run_inputs(site: "Site") -> list[Path]:
     inputs = [site.path, *(e.bundle for e in site.scans)]
     if site.dxf.base is not None:
         inputs.append(site.dxf.base)
-    if site.elements is not None:
+    if site.elements is not None and site.elements.source is not None:
         src = site.elements.source
         inputs += [src, *(src.with_name(src.name + s) for s in ("-wal", "-shm", "-journal"))]
     return inputs

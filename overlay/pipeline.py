@@ -511,7 +511,7 @@ def finish_site(site: Site, results: list[ScanResult], started: str, caught: lis
         assets, layer = None, None
         if site.elements is not None:
             assets = read_asset_table(site.elements)
-            layer = element_layer(assets, crs, to_map, UNIT_TO_M[site.drawing_unit], str(site.elements.source))
+            layer = element_layer(assets, crs, to_map, UNIT_TO_M[site.drawing_unit], site.elements.where)
     for w in seen:
         caught.append(str(w.message))
         warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)

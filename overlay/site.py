@@ -60,11 +60,24 @@ class MapFrame:
 
 @dataclass(frozen=True)
 class Elements:
-    """Where the element outlines (for area shares) come from: a GIS layer in the map CRS."""
+    """Where the element outlines (for area shares) come from: a layer of a GIS file (``source``) or a
+    table of the owner's PostgreSQL/PostGIS database (``database``: a libpq connection string, URI or
+    ``service=name``, never with a password; ``schema``)."""
 
-    source: Path
+    source: Path | None
     layer: str | None = None
     id_field: str = "asset_id"
+    database: str | None = None
+    schema: str = "public"
+
+    @property
+    def where(self) -> str:
+        """The asset register as messages name it."""
+        if self.database is not None:
+            from .postgis import describe_database
+
+            return describe_database(self.database)
+        return str(self.source)
 
 
 SHEETS = ("A0", "A1", "A2", "A3", "A4")
@@ -211,9 +224,9 @@ def read_site(path: str | Path) -> Site:
             raise doc.fail("merge", "needs [elements] naming the owner's asset GeoPackage and layer")
         if map_frame is None:
             raise doc.fail("merge", "needs a [map] frame: findings go into the owner's GIS in its CRS")
-        if not is_geopackage_file(elements.source):
+        if elements.source is not None and not is_geopackage_file(elements.source):
             raise doc.fail("merge", f"the [elements] source {elements.source.name} is not a GeoPackage; "
-                           "findings are merged into GeoPackages only")
+                           "findings are merged into a GeoPackage or a PostgreSQL database")
         check_layer_name(merge.findings_layer, elements.layer, source=str(path))
 
     cps: dict[str, tuple[float, float]] = {}
@@ -362,11 +375,28 @@ def _elements(doc: Fields, path: Path) -> Elements | None:
     e = doc.table_of("elements")
     if e is None:
         return None
-    source = e.string("source", required=True) or ""
-    full = path.parent / source
-    if not full.is_file():
-        raise e.fail("source", f"file not found: {full}")
-    out = Elements(full, e.string("layer"), e.string("id_field", "asset_id") or "asset_id")
+    source, database = e.string("source"), e.string("database")
+    if (source is None) == (database is None):
+        raise e.fail("source", "give either source (a GIS file) or database (a PostgreSQL connection), not "
+                     + ("both" if source is not None else "neither"))
+    id_field = e.string("id_field", "asset_id") or "asset_id"
+    if database is not None:
+        from .postgis import check_conninfo
+
+        problem = check_conninfo(database)
+        if problem:
+            raise e.fail("database", problem)
+        layer = e.string("layer")
+        if layer is None:
+            raise e.fail("layer", "required with database: the asset table's name")
+        out = Elements(None, layer, id_field, database, e.string("schema", "public") or "public")
+    else:
+        full = path.parent / (source or "")
+        if not full.is_file():
+            raise e.fail("source", f"file not found: {full}")
+        if e.string("schema") is not None:
+            raise e.fail("schema", "only with database (a GIS file has no schemas)")
+        out = Elements(full, e.string("layer"), id_field)
     e.reject_unknown()
     return out
 

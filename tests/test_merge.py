@@ -31,6 +31,8 @@ from overlay.elements import ElementLayer, split_by_assets
 from overlay.errors import OutputConflictError, RegistrationError, SiteFileError
 from overlay.merge import backups_of, findings_rows, merge_findings, prepare_merge
 
+from .merging import merge_child, race, subset
+
 FORK = multiprocessing.get_context("fork")
 
 
@@ -50,14 +52,6 @@ def owner(demo: dict, tmp_path: Path):
 def point_at(result, target: Path):
     site = dataclasses.replace(result.site, elements=dataclasses.replace(result.site.elements, source=target))
     return dataclasses.replace(result, site=site)
-
-
-def subset(result, scans: set[str]):
-    """The result as if only ``scans`` had been run."""
-    zones = [z for z in result.zones if set(z.scan_id.split(";")) <= scans]
-    ids = {z.zone_id for z in zones}
-    return dataclasses.replace(result, scans=[s for s in result.scans if s.scan_id in scans], mosaic=zones,
-                               asset_pieces=[p for p in result.asset_pieces if p["zone_id"] in ids])
 
 
 def findings(path: Path) -> list[tuple]:
@@ -194,19 +188,6 @@ def test_wal_file_with_another_programs_edit_keeps_both(owner) -> None:
     backup.close()
 
 
-def _merge_child(result, wait_s: float, conn) -> None:
-    try:
-        s = merge_findings(result, wait_s=wait_s)
-        conn.send(("ok", s.added))
-    except OutputConflictError as exc:
-        conn.send(("refused", exc.exit_code))
-    except BaseException as exc:  # pragma: no cover - reported to the parent
-        conn.send(("error", repr(exc)))
-    finally:
-        conn.close()
-        os._exit(0)
-
-
 def test_two_merges_racing_lose_nothing(owner) -> None:
     target, result = owner
     a, b = subset(result, {"S-101", "S-106", "S-102"}), subset(result, {"S-103", "S-104", "S-105"})
@@ -219,17 +200,7 @@ def test_two_merges_racing_lose_nothing(owner) -> None:
         for extra in target.parent.glob("assets.before-overlay*"):
             extra.unlink()
         wait = 10.0 if trial % 2 == 0 else 0.0  # half the trials wait for the lock, half refuse at once
-        pipes, procs = [], []
-        for r in (a, b):
-            parent, child = FORK.Pipe()
-            p = FORK.Process(target=_merge_child, args=(r, wait, child))
-            p.start()
-            pipes.append(parent)
-            procs.append(p)
-            time.sleep(rng.uniform(0.0, 0.05))
-        outcome = [pp.recv() for pp in pipes]
-        for p in procs:
-            p.join(30)
+        outcome = race((a, b), wait, rng)
         con = sqlite3.connect(target)
         rows = set(con.execute("SELECT asset_id, scan_id FROM acoustic_findings").fetchall())
         con.close()
@@ -255,7 +226,7 @@ def test_kill_9_during_a_merge_leaves_the_file_before_or_after(owner, tmp_path: 
     before, after = findings(target), findings(done)
     parent, child = FORK.Pipe()
     t0 = time.perf_counter()
-    p = FORK.Process(target=_merge_child, args=(point_at(result, done), 10.0, child))
+    p = FORK.Process(target=merge_child, args=(point_at(result, done), 10.0, child))
     p.start()
     assert parent.recv()[0] == "ok"
     duration = time.perf_counter() - t0  # a whole merge in a child process, fork included
@@ -268,7 +239,7 @@ def test_kill_9_during_a_merge_leaves_the_file_before_or_after(owner, tmp_path: 
             if extra != target:
                 extra.unlink()
         parent, child = FORK.Pipe()
-        p = FORK.Process(target=_merge_child, args=(result, 10.0, child))
+        p = FORK.Process(target=merge_child, args=(result, 10.0, child))
         p.start()
         time.sleep(rng.uniform(0.3 * duration, 1.3 * duration))
         os.kill(p.pid, signal.SIGKILL)
