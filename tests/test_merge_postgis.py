@@ -143,18 +143,22 @@ def test_split_areas_conserved_and_three_reruns_idempotent(owner_db) -> None:
         con.execute("INSERT INTO owner.acoustic_findings (geom, asset_id, source, scan_id, zone_id) VALUES "
                     "(ST_Multi(ST_MakeEnvelope(512360, 5712480, 512361, 5712481, 25832)), 'KLO2-S2-B2', "
                     "'sounding-2025', 'S-101', 'h7')")
+        con.execute("INSERT INTO owner.acoustic_findings (geom, asset_id, source, scan_id, zone_id) VALUES "
+                    "(ST_Multi(ST_MakeEnvelope(512362, 5712480, 512363, 5712481, 25832)), 'KLO2-S2-B2', "
+                    "'overlay', 'S-999', 'S-999.watch.01')")  # ours, from a scan this run does not hold
     first = merge_findings(result)
-    assert first.added > 0 and first.kept == 1 and set(first.added_fields) >= {"class", "inspected"}
+    assert first.added > 0 and first.kept == 2 and set(first.added_fields) >= {"class", "inspected"}
     snapshot = digest(conninfo)
     for _ in range(2):
         again = merge_findings(result)
-        assert again.replaced == first.added and again.added == first.added and again.kept == 1
+        assert again.replaced == first.added and again.added == first.added and again.kept == 2
         assert digest(conninfo) == snapshot
     with psycopg.connect(conninfo) as con:
         areas = dict(con.execute("SELECT zone_id || '|' || asset_id, ST_Area(geom) FROM owner.acoustic_findings "
-                                 "WHERE source = 'overlay'").fetchall())
-        foreign = con.execute("SELECT count(*) FROM owner.acoustic_findings WHERE source = 'sounding-2025'").fetchone()
-    assert foreign[0] == 1
+                                 "WHERE source = 'overlay' AND scan_id <> 'S-999'").fetchall())
+        kept = con.execute("SELECT source, scan_id FROM owner.acoustic_findings WHERE zone_id IN ('h7', "
+                           "'S-999.watch.01') ORDER BY 1").fetchall()
+    assert kept == [("overlay", "S-999"), ("sounding-2025", "S-101")]
     pieces = {f"{p['zone_id']}|{p['asset_id']}": p["geometry"].area for p in result.asset_pieces
               if p["zone_id"] == p["defect_id"]}
     assert set(areas) == set(pieces)
