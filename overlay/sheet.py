@@ -343,15 +343,13 @@ def _paper_labels(pen: _Pen, found: Sequence[Any], d: Detail, per_mm: float, mov
 
     r = d.paper
     frame = shapely.box(r.x0, r.y0, r.x1, r.y1)
-    walls = [shapely.box(r.x0 - 1e4, r.y0 - 1e4, r.x1 + 1e4, r.y1 + 1e4).difference(frame)]  # keep labels inside
-    walls += [b for b in (to_paper(g) for g in symbols) if b.intersects(frame)]
+    marks = [b for b in (to_paper(g) for g in symbols) if b.intersects(frame)]
     items = []
     for f in found:
         zone = to_paper(f.lowest.defect if not f.lowest.defect.is_empty else f.lowest.contour)
         items.append(Item(f.defect_id, zone.intersection(frame), pen.width(f.defect_id, LABEL_MM),
                           LABEL_MM * 1.35))
-    for it, p in zip(items, place_labels([it for it in items if not it.zone.is_empty], 1.0, walls)
-                     if any(not it.zone.is_empty for it in items) else []):
+    for p in place_labels([it for it in items if not it.zone.is_empty], 1.0, marks, within=(r.x0, r.y0, r.x1, r.y1)):
         f = next(x for x in found if x.defect_id == p.key)
         layer = f"{prefix}-{f.highest_class.upper()}-TEXT"
         x0, y0, _, _ = p.box.bounds

@@ -58,6 +58,7 @@ LINETYPES = {"DASH": ("dashed __ __", [2.5, -1.25]), "DASHDOT": ("dash dot __ . 
              "DOT": ("dotted . . .", [0.0, -1.0]), "LONGDASH": ("long dashed ____ ____", [6.0, -2.0])}
 DASH_OF = {"-": None, "--": "DASH", "-.": "DASHDOT", ":": "DOT"}  # palette line style → our linetype
 MTEXT_LINE = 5 / 3  # MTEXT line spacing in character heights (DXF reference, line spacing factor 1)
+NAME_RINGS = 6  # how far (in label heights) a target or scan name may move from its symbol
 LINEWEIGHT = {"outline": 35, "defect": 35, "repair": 70, "extent": 18, "control": 25, "text": 18, "note": 18}
 
 
@@ -328,7 +329,9 @@ def _scans(msp: Any, result: "RunResult", move: Any, fixed: dict[str, str], text
 def _names(msp: Any, result: "RunResult", move: Any, fixed: dict[str, str], text: Lettering, style: "DxfStyle",
            k: float, obstacles: list[Polygon]) -> None:
     """Scan and target names, placed like the defect labels: clear of each other, of every label and
-    leader, of the defects' zones and of the symbols; a thin leader where a name had to move away."""
+    leader, of the defects' zones and of the symbols; a thin leader where a name had to move away.
+    A name with no clear place within NAME_RINGS rings of its symbol is left out: at a scale where
+    the names would crowd the drawing they are noise (the scan pictures and fit reports name them)."""
     h = text.note
     font = fonts.make_font(style.font, h)
     items: list[Item] = []
@@ -341,7 +344,7 @@ def _names(msp: Any, result: "RunResult", move: Any, fixed: dict[str, str], text
             x, y = t.drawing[0] * k, t.drawing[1] * k
             items.append(Item(t.name, shapely.box(x - h, y - h, x + h, y + h), font.text_width(t.name), h * 1.35))
     unique = list({it.key: it for it in items}.values())  # a target seen by two scans is named once
-    for p in place_labels(unique, gap=h * 0.4, obstacles=obstacles):
+    for p in place_labels(unique, gap=h * 0.4, obstacles=obstacles, rings=NAME_RINGS, optional=True):
         x0, y0, _, _ = p.box.bounds
         msp.add_text(clean_text(p.key), height=h, dxfattribs={"layer": fixed["annotation"], "style": style.text_style}
                      ).set_placement((x0, y0 + 0.35 * h))
