@@ -218,6 +218,91 @@ def scan_preview(result: "RunResult", scan: "ScanResult") -> bytes:
     return _png(fig)
 
 
+THUMB_SIZE = (5.0, 3.6)  # inches → 550 × 396 pixels
+SPECTRUM_SIZE = (5.0, 2.4)
+
+
+def ver_scale(result: "RunResult") -> tuple[float, float]:
+    """The one VER colour scale of a campaign's compact pictures: 0 dB to 5 dB above the top class."""
+    return 0.0, max(c.threshold_db for c in result.site.classes) + 5.0
+
+
+def scan_thumbnail(result: "RunResult", scan: "ScanResult") -> bytes:
+    """A campaign's picture of one scan: the VER map on the campaign's one colour scale (its key is on
+    the report's pages), class contours, defect ids, dropouts and targets, a scale bar — no axes, no
+    colour bar, one collection per kind: a tenth of the full preview's drawing time, which counts
+    over thousands of scans.  (A site of a few scans gets the full preview, scan_preview.)"""
+    from matplotlib.collections import LineCollection
+
+    fig = plt.figure(figsize=THUMB_SIZE)
+    ax = fig.add_axes((0.01, 0.01, 0.98, 0.88))
+    ax.set_axis_off()
+    xy = scan.point_xy
+    ok = scan.valid & np.isfinite(scan.ver_db)
+    lo, hi = ver_scale(result)
+    _draw_map(ax, scan, scan.ver_db, ok, cmap=VER_CMAP, vmin=lo, vmax=hi)
+    _rings(ax, scan.extent, color="0.3", lw=0.8, ls=":")
+    bad = ~scan.valid
+    if bad.any():
+        ax.plot(xy[bad, 0], xy[bad, 1], "x", color="black", ms=3, mew=0.6)
+    zones = zones_of(result, scan)
+    for c in result.site.classes:
+        colour, ls = _class_style(result, c.name)
+        rings = [np.asarray(r.coords) for z in zones if z.class_name == c.name
+                 for part in shapely.get_parts(z.contour) for r in (part.exterior, *part.interiors)]
+        if rings:
+            ax.add_collection(LineCollection(rings, colors=colour, linewidths=1.3, linestyles=ls))
+    for z in zones:
+        if z.defect_id == z.zone_id:
+            p = z.contour.representative_point()
+            ax.text(p.x, p.y, z.zone_id, fontsize=6, ha="center", va="bottom", color="white")
+    if scan.targets:
+        t = np.array([t.drawing for t in scan.targets])
+        ax.plot(t[:, 0], t[:, 1], "^", color="#009E73", ms=5, mec="black", mew=0.5)
+    ax.set_aspect("equal")
+    ax.autoscale_view()
+    ax.margins(0.06)
+    fig.text(0.01, 0.97, f"scan {scan.scan_id} — {scan.element}   fit RMS {scan.fit.rms * 1000 * result.unit_m:.1f} mm",
+             fontsize=8, va="top")
+    _scale_bar(ax, result.unit_m)
+    return _png(fig)
+
+
+def defect_spectrum(result: "RunResult", defect: "Defect") -> bytes:
+    """A campaign's picture of one defect: its zone's averaged spectrum against sound concrete and
+    the peak, titled with the defect's numbers as the tables print them (defect_sheet, the full
+    version with the per-point peak histogram, is drawn for small sites)."""
+    fig = plt.figure(figsize=SPECTRUM_SIZE)
+    ax = fig.add_axes((0.13, 0.2, 0.84, 0.6))
+    top, low = defect.top, defect.lowest
+    scan = next(s for s in result.scans if s.scan_id == low.scan_id.split(";")[0])
+    zone = top if top.spectrum is not None else low
+    if zone.spectrum is not None and scan.band_freqs is not None:
+        f = scan.band_freqs
+        ax.semilogy(f, zone.spectrum, color="#D55E00", lw=1.2)
+        if scan.healthy_spectrum is not None:
+            ax.semilogy(f, scan.healthy_spectrum, color="#0072B2", lw=1.0, ls="--")
+        ax.set_xlim(f[0], f[-1])
+        ax.minorticks_off()
+        ax.yaxis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:.0e}"))
+    else:
+        ax.text(0.5, 0.5, "ready VER: no spectra in the bundle", ha="center", va="center", transform=ax.transAxes)
+    if top.peak_hz == top.peak_hz:
+        ax.axvline(top.peak_hz, color="black", lw=0.8, ls=":")
+    ax.tick_params(labelsize=6)
+    ax.set_xlabel("Hz (solid: zone average, dashed: sound concrete)", fontsize=6)
+    fig.text(0.01, 0.98, f"defect {defect.defect_id}: contours {_contour_areas(result, defect)} m²; outline "
+             f"{low.outline_area_m2:.4f} m² ({low.outline_basis})\n{top.zone_id}: peak {top.peak_hz:.0f} Hz, "
+             f"confidence {top.confidence:.2f}", fontsize=7, va="top")
+    return _png(fig)
+
+
+def _contour_areas(result: "RunResult", defect: "Defect") -> str:
+    """Each class contour area of a defect, at the tables' precision, so pictures and tables read the same."""
+    return ", ".join(f"{c.name} {defect.contour_area_m2(c.name):.4f}" for c in result.site.classes
+                     if defect.contour_area_m2(c.name) > 0)
+
+
 def field_map(result: "RunResult", scan: "ScanResult") -> bytes:
     """The sound field a scan's VER is measured against (its reference, dB), beside which the VER map
     reads: where the incident level was strong or weak, and how much it varied."""
@@ -280,9 +365,7 @@ def defect_sheet(result: "RunResult", defect: "Defect") -> bytes:
     a1.set_ylabel("PSD ((m/s)²/Hz)")
     if a1.get_legend_handles_labels()[0]:
         a1.legend(fontsize=7)
-    areas = ", ".join(f"{c.name} {defect.contour_area_m2(c.name):.4f}" for c in result.site.classes
-                      if defect.contour_area_m2(c.name) > 0)  # the tables' precision, so they read the same
-    a1.set_title(f"defect {defect.defect_id}: contours {areas} m²; outline {low.outline_area_m2:.4f} m² "
+    a1.set_title(f"defect {defect.defect_id}: contours {_contour_areas(result, defect)} m²; outline {low.outline_area_m2:.4f} m² "
                  f"({low.outline_basis})", fontsize=8, y=TITLE_Y)
     peaks = []
     for sid in low.scan_id.split(";"):

@@ -5,7 +5,8 @@ Up to ``PAGE_LIMIT_SCANS`` scans the report is one file with every picture embed
 anywhere, no network).  Beyond that one page would grow by half a megabyte per scan, so the
 report becomes a folder: an index (cautions, settings, quantities, the site map and a thumbnail
 per element) and one page per element (its picture, defects, zones, scans, fits and pictures),
-the pictures referenced as files from ``<basename>-pictures/``.  Every table comes from
+the pictures referenced as files from ``<basename>-pictures/`` — the compact ones (scan maps on one
+colour scale, keyed on each page; defect spectra), which a campaign draws in a tenth of the time.  Every table comes from
 overlay.quantities and overlay.report, the rows the CSV and the text report print.
 """
 
@@ -179,6 +180,21 @@ def _scanned_elements(result: "RunResult") -> list[str]:
 NO_ELEMENT = "no element"
 
 
+def _ver_key(result: "RunResult") -> str:
+    """The colour key of the campaign pictures' one VER scale, as a CSS gradient (no picture to draw)."""
+    from matplotlib import colormaps
+    from matplotlib.colors import to_hex
+
+    from .pictures import VER_CMAP, ver_scale
+
+    lo, hi = ver_scale(result)
+    cmap = colormaps[VER_CMAP]
+    stops = ", ".join(f"{to_hex(cmap(k / 10))} {k * 10}%" for k in range(11))
+    return (f'<p>Scan pictures: vibration energy ratio from {lo:g} dB <span style="display:inline-block;width:240px;'
+            f'height:.9em;vertical-align:middle;background:linear-gradient(to right, {stops})"></span> '
+            f"{hi:g} dB and above; class contours in the colours of the drawing.</p>")
+
+
 def report_pages(result: "RunResult", img: Picture) -> dict[str, str]:
     """The folder report (campaigns): ``index.html`` and one page per scanned element, by file name.
     ``img`` links the pictures (or embeds them, for printing)."""
@@ -210,6 +226,7 @@ def report_pages(result: "RunResult", img: Picture) -> dict[str, str]:
         page = _head(result, f"{site.name} {site.structure} — element {e}".strip())
         page += ['<p><a href="index.html">back to the site</a></p>', img(f"element-{file_stem(e)}", f"zones of {e}")]
         page += _quantities(result, {e})
+        page.append(_ver_key(result))
         for s in result.scans:
             if (s.element or NO_ELEMENT) == e:
                 page += _scan(s, result, img)

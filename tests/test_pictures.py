@@ -73,9 +73,12 @@ def test_a_map_with_zones_differs_from_one_without(demo: dict) -> None:
 ZONE_ID = re.compile(r"[A-Za-z0-9_-]+\.(?:watch|suspect|probable)\.\d\d(?:\+\d+)?")
 
 
-def test_picture_ids_and_numbers_match_the_zone_table(written: dict, monkeypatch: pytest.MonkeyPatch) -> None:
+@pytest.mark.parametrize("compact", [False, True], ids=["site", "campaign"])
+def test_picture_ids_and_numbers_match_the_zone_table(written: dict, monkeypatch: pytest.MonkeyPatch,
+                                                      compact: bool) -> None:
     # one source of truth: every zone id a picture shows (in its texts or its file name) is a row of the
-    # quantities CSV, and a defect sheet's areas, peak and confidence read the same as those rows
+    # quantities CSV, and a defect sheet's areas, peak and confidence read the same as those rows — in
+    # the full pictures of a site and the compact ones of a campaign
     from overlay import outputs
 
     rows = list(csv.DictReader(written["paths"]["quantities-csv"].open()))
@@ -92,6 +95,7 @@ def test_picture_ids_and_numbers_match_the_zone_table(written: dict, monkeypatch
     monkeypatch.setattr(pictures, "_png", capture)
     for name, kind, key in outputs._picture_tasks(written["result"], None):
         outputs._share(written["result"], None)
+        outputs._SHARED["compact"] = compact
         outputs._draw((name, kind, key))
         texts[name] = drawn[-1]
     outputs._SHARED.clear()
@@ -369,3 +373,18 @@ def test_grid_scans_are_drawn_as_images_placed_by_their_affine_lattice(demo: dic
         use = have & ok
         assert np.array_equal(image[rc[use, 0], rc[use, 1]], scan.ver_db[use])
         assert image.mask[rc[have & ~ok, 0], rc[have & ~ok, 1]].all()  # dropouts are holes, not zeros
+
+
+def test_campaign_pictures_are_compact_and_keyed(folder_report: dict) -> None:
+    # a campaign's scan maps: the compact size, on one colour scale whose key each element page shows
+    paths, result = folder_report["paths"], folder_report["result"]
+    w, h = (round(v * pictures.DPI) for v in pictures.THUMB_SIZE)
+    for s in result.scans:
+        png = (paths["pictures"] / f"scan-{s.scan_id}.png").read_bytes()
+        assert _size(png) == (w, h)
+        img = _pixels(png)
+        assert len(np.unique(img.reshape(-1, img.shape[-1]), axis=0)) > 50  # not blank
+    lo, hi = pictures.ver_scale(result)
+    assert (lo, hi) == (0.0, result.site.classes[-1].threshold_db + 5.0)
+    for page in paths["html"].parent.glob("element-*.html"):
+        assert f"from {lo:g} dB" in page.read_text() and "linear-gradient" in page.read_text()
