@@ -47,7 +47,7 @@ def main() -> None:
         print(f"  the numbers (run_campaign, 2 processes)   {numbers:.1f} s")
         print(f"  pictures on 1 process                     {times[1]:.1f} s   ({times[1] / len(images):.2f} s per picture)")
         print(f"  pictures on 2 processes                   {times[2]:.1f} s   (speed-up {times[1] / times[2]:.2f})")
-        print(f"  PNG bytes embedded in the HTML report     {size / 1e6:.1f} MB   ({size / len(images) / 1e3:.0f} kB per picture)")
+        print(f"  PNG bytes                                 {size / 1e6:.1f} MB   ({size / len(images) / 1e3:.0f} kB per picture)")
 
 
 if __name__ == "__main__":
