@@ -28,6 +28,7 @@ DEFAULT_FORMATS = ("dxf", "gpkg", "quantities-csv")
 # common practice (from memory; docs/references.md, Inspection practice): a repair outline extends 150 mm beyond the sounded area;
 # UFGS 03 93 10 asks at least 25 mm for the saw cut
 REPAIR_MARGIN_M = 0.15
+MAX_MARGIN_M = 2.0  # a cutting margin beyond this is a unit mistake (mm for m), not a margin
 MODEL_CHOICES = ("auto", "similarity", "affine", "projective")
 TOLERANCE_M = 0.02  # worst control-target residual allowed: 20 mm on the structure, whatever the drawing unit
 SCALE_RANGE = (0.9, 1.1)  # a declared map scale outside this is a unit mistake, not a projection's scale factor
@@ -211,7 +212,7 @@ def read_site(path: str | Path) -> Site:
 
     concrete = _concrete(doc)
     rp = _table(doc, "repair")
-    margin = rp.number("margin_m", REPAIR_MARGIN_M, minimum=0.0)
+    margin = rp.number("margin_m", REPAIR_MARGIN_M, minimum=0.0, maximum=MAX_MARGIN_M)
     footprint = rp.choice("footprint", ("aligned", "rotated"), default="aligned")
     basis = rp.choice("basis", ("outline", "contour"), default="outline")
     elements = _elements(doc, path)

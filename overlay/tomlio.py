@@ -150,6 +150,7 @@ class Fields:
         required: bool = False,
         positive: bool = False,
         minimum: float | None = None,
+        maximum: float | None = None,
     ) -> float | None:
         value = self.raw(key)
         if value is None:
@@ -165,6 +166,8 @@ class Fields:
             raise self.fail(key, f"must be positive, got {value:g}")
         if minimum is not None and value < minimum:
             raise self.fail(key, f"must be at least {minimum:g}, got {value:g}")
+        if maximum is not None and value > maximum:
+            raise self.fail(key, f"must be at most {maximum:g}, got {value:g}")
         return value
 
     def pair(self, key: str, *, required: bool = False) -> tuple[float, float] | None:

@@ -36,6 +36,9 @@ def test_defaults_and_glob(tmp_path: Path) -> None:
         ('\n[merge]\nfindings_layer = "x"\n', "merge: needs [elements]"),
         ('\n[concrete]\nfc_mpa = 30\nmodulus_gpa = 30\n', "give modulus_gpa or fc_mpa"),
         ('\n[repair]\nfootprint = "round"\n', "repair.footprint: must be one of"),
+        ('\n[repair]\nmargin_m = 150\n', "repair.margin_m: must be at most 2"),  # millimetres given as metres
+        ('\n[elements]\ndatabase = "host=x password=y"\nlayer = "a"\n', "elements.database: holds a password"),
+        ('\n[elements]\nsource = "a.gpkg"\ndatabase = "host=x"\n', "not both"),
         ('\n[quality]\nmin_signal_level = 2\n', "quality.min_signal_level: must lie in 0..1"),
     ],
 )
