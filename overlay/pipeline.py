@@ -248,9 +248,9 @@ def process_scan(
     element = entry.element or scan.element or ""
     surveyed = scan.surveyed.astimezone(dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ") if scan.surveyed else ""
     spacing_d = spacing * to_drawing.local_scale(xy_work)  # grid spacing in drawing units
-    extent = to_drawing.apply_geometry(grid.extent())
-    values = grid.contour_values(ver, valid)
     scan_area = grid.extent()
+    extent = to_drawing.apply_geometry(scan_area)
+    values = grid.contour_values(ver, valid)
     zone_psd = _zone_psd_source(scan, gate)
     band_freqs, healthy = _healthy_spectrum(zone_psd, ver, valid)
     zones: list[Zone] = []
