@@ -8,7 +8,6 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
-import pyogrio
 import pyproj
 import shapely
 
@@ -83,6 +82,8 @@ def read_asset_table(elements: "Elements") -> AssetTable:
         finally:
             con.close()
     try:
+        import pyogrio  # GDAL only for an asset layer that is not a GeoPackage
+
         frame = pyogrio.read_dataframe(elements.source, layer=elements.layer)
     except Exception as exc:  # GDAL's own message names the problem
         raise SiteFileError(f"cannot read the element layer ({exc})", source=src, field="elements") from exc

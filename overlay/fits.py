@@ -16,7 +16,6 @@ from itertools import combinations
 from typing import Sequence
 
 import numpy as np
-import scipy.optimize
 
 from .errors import RegistrationError, RegistrationWarning
 from .transforms import Affine, Projective, Similarity, Transform
@@ -113,6 +112,8 @@ def _projective(src: np.ndarray, dst: np.ndarray) -> Projective:
     hm = hm / hm[2, 2]
     t = Projective(tuple(float(v) for v in hm.ravel()[:8]))
     if len(src) > 4:
+        import scipy.optimize  # here, not at import: a run without such a fit need not load it
+
         res = scipy.optimize.least_squares(
             lambda h: (Projective(tuple(h)).apply(src) - dst).ravel(), np.array(t.h), method="lm", xtol=1e-15, ftol=1e-15
         )

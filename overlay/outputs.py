@@ -92,9 +92,10 @@ def output_paths(out_dir: Path, basename: str, exporters: dict[str, "Exporter"],
 def select_exporters(formats: Sequence[str], source: Path | None = None) -> dict[str, "Exporter"]:
     """The installed exporters for ``formats``; an unknown or broken name is a site-file error naming the choices."""
     from .errors import SiteFileError
-    from .exporters import load_exporters
+    from .exporters import GROUP, load_exporters
+    from .plugins import plugin_names
 
-    usable, broken = load_exporters()
+    usable, broken = load_exporters(only=set(formats))
     chosen: dict[str, Exporter] = {}
     for f in formats:
         if f in usable:
@@ -102,7 +103,8 @@ def select_exporters(formats: Sequence[str], source: Path | None = None) -> dict
             continue
         why = next((b.problem for b in broken if b.name == f), None)
         problem = f"exporter {f!r} is broken: {why}" if why else f"unknown exporter {f!r}"
-        raise SiteFileError(f"{problem}; available: {', '.join(sorted(usable)) or 'none'}", source=source, field="outputs.formats")
+        names = [n for n in plugin_names(GROUP) if n not in {b.name for b in broken}]
+        raise SiteFileError(f"{problem}; available: {', '.join(names) or 'none'}", source=source, field="outputs.formats")
     return chosen
 
 

@@ -12,7 +12,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Sequence
 
-from ezdxf.colors import aci2rgb
 
 if TYPE_CHECKING:
     from .site import Site
@@ -42,6 +41,8 @@ class ClassStyle:
 
 def nearest_aci(rgb: RGB) -> int:
     """The AutoCAD Color Index (1–255, DXF standard palette) closest to ``rgb``."""
+    from ezdxf.colors import aci2rgb
+
     best, dist = 7, float("inf")
     for i in range(1, 256):
         c = aci2rgb(i)
@@ -57,6 +58,8 @@ def class_styles(names: Sequence[str], aci_overrides: dict[str, int] | None = No
     out = {}
     for i, name in enumerate(names):
         if name in chosen:
+            from ezdxf.colors import aci2rgb
+
             c = aci2rgb(chosen[name])
             rgb, aci = (c.r, c.g, c.b), chosen[name]
         else:

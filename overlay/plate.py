@@ -13,7 +13,6 @@ import math
 from functools import lru_cache
 
 import numpy as np
-import scipy.optimize
 import scipy.special as sp
 
 
@@ -26,6 +25,8 @@ def aci318_modulus_pa(fc_mpa: float) -> float:
 def clamped_lambda() -> float:
     """Root of J0(λ)I1(λ) + I0(λ)J1(λ) = 0 near 3.196: the clamped fundamental."""
     f = lambda x: sp.j0(x) * sp.i1(x) + sp.i0(x) * sp.j1(x)  # noqa: E731
+    import scipy.optimize
+
     return float(scipy.optimize.brentq(f, 2.5, 3.8, xtol=1e-14))
 
 
@@ -33,6 +34,8 @@ def clamped_lambda() -> float:
 def simply_supported_lambda(poisson: float) -> float:
     """Root of J1/J0 + I1/I0 = 2λ/(1−ν): the simply supported fundamental."""
     f = lambda x: sp.j1(x) / sp.j0(x) + sp.i1(x) / sp.i0(x) - 2 * x / (1 - poisson)  # noqa: E731
+    import scipy.optimize
+
     return float(scipy.optimize.brentq(f, 1.5, 2.39, xtol=1e-14))
 
 

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from importlib.metadata import EntryPoint, entry_points
-from typing import Any, Callable, Iterable
+from typing import Any, Callable, Collection, Iterable
 
 
 @dataclass(frozen=True)
@@ -20,10 +20,18 @@ class Broken:
     problem: str
 
 
-def load_group(group: str, check: Callable[[Any, str], str | None],
-               eps: Iterable[EntryPoint] | None = None) -> tuple[dict[str, Any], list[Broken]]:
-    """Load every plugin of ``group`` (or of ``eps``, for tests); ``check(obj, name)`` says what is wrong or None."""
+def plugin_names(group: str, eps: Iterable[EntryPoint] | None = None) -> list[str]:
+    """The names registered in ``group``, without loading any plugin."""
+    return sorted({ep.name for ep in (entry_points(group=group) if eps is None else eps)})
+
+
+def load_group(group: str, check: Callable[[Any, str], str | None], eps: Iterable[EntryPoint] | None = None,
+               only: Collection[str] | None = None) -> tuple[dict[str, Any], list[Broken]]:
+    """Load every plugin of ``group`` (or of ``eps``, for tests), or only those named in ``only`` (a run
+    imports the formats it writes, not every installed one); ``check(obj, name)`` says what is wrong or None."""
     found = entry_points(group=group) if eps is None else eps
+    if only is not None:
+        found = [ep for ep in found if ep.name in only]
     usable: dict[str, Any] = {}
     broken: list[Broken] = []
     for ep in sorted(found, key=lambda e: e.name):

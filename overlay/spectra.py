@@ -18,7 +18,6 @@ from typing import Callable, Iterable
 
 import numpy as np
 import scipy.fft
-import scipy.signal
 
 from .errors import SignalError
 from .gate import Gate
@@ -40,8 +39,9 @@ class PointSpectra:
 
 
 def hann(n: int) -> np.ndarray:
-    """The periodic Hann window scipy uses for spectral estimates."""
-    return scipy.signal.get_window("hann", n).astype(np.float64)
+    """The periodic Hann window, 0.5 − 0.5·cos(2πk/n), as scipy.signal.get_window("hann", n) gives it
+    for spectral estimates (written out: importing scipy.signal cost a third of a second per run)."""
+    return 0.5 - 0.5 * np.cos(2.0 * np.pi * np.arange(n) / n) if n > 1 else np.ones(n)
 
 
 def periodogram(x: np.ndarray, fs: float) -> tuple[np.ndarray, np.ndarray]:

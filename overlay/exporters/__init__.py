@@ -11,7 +11,7 @@ from __future__ import annotations
 
 from importlib.metadata import EntryPoint
 from pathlib import Path
-from typing import TYPE_CHECKING, Iterable, Protocol, runtime_checkable
+from typing import TYPE_CHECKING, Collection, Iterable, Protocol, runtime_checkable
 
 from ..plugins import Broken, load_group
 
@@ -55,6 +55,7 @@ def _check(obj: object, name: str) -> str | None:
     return problem
 
 
-def load_exporters(eps: Iterable[EntryPoint] | None = None) -> tuple[dict[str, Exporter], list[Broken]]:
-    """Load every exporter of the group; return the usable ones by name and the broken ones."""
-    return load_group(GROUP, _check, eps)
+def load_exporters(eps: Iterable[EntryPoint] | None = None, only: Collection[str] | None = None
+                   ) -> tuple[dict[str, Exporter], list[Broken]]:
+    """Load every exporter of the group (or those named in ``only``); the usable ones by name and the broken ones."""
+    return load_group(GROUP, _check, eps, only)
