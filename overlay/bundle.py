@@ -275,19 +275,14 @@ def _read_points(path: Path, kind: str, unit_scale: float) -> dict[str, np.ndarr
             near = difflib.get_close_matches(h, sorted(KNOWN_COLUMNS - set(other)), n=1, cutoff=0.6)
             why = f"unknown column{f'; did you mean {near[0]!r}?' if near else ''} (known: {', '.join(sorted(KNOWN_COLUMNS - set(other)))})"
         raise BundleError(why, source=path, field=f"line 1, column {h}")
-    body = [r for r in rows[1:] if any(c.strip() for c in r)]
+    linenos = [i for i, r in enumerate(rows[1:], start=2) if any(c.strip() for c in r)]
+    body = [rows[i - 1] for i in linenos]
     if not body:
         raise BundleError("no point rows after the header", source=path)
-    idx = {h: i for i, h in enumerate(header)}
-    cols: dict[str, list[str]] = {h: [] for h in header}
-    for lineno, r in enumerate(rows[1:], start=2):
-        if not any(c.strip() for c in r):
-            continue
+    for ln, r in zip(linenos, body):
         if len(r) != len(header):
-            raise BundleError(f"has {len(r)} fields, header has {len(header)}", source=path, field=f"line {lineno}")
-        for h, i in idx.items():
-            cols[h].append(r[i].strip())
-    linenos = [i for i, r in enumerate(rows[1:], start=2) if any(c.strip() for c in r)]
+            raise BundleError(f"has {len(r)} fields, header has {len(header)}", source=path, field=f"line {ln}")
+    cols = {h: [c.strip() for c in column] for h, column in zip(header, zip(*body))}
 
     ids = np.array(cols["id"], dtype=object)
     seen: dict[str, int] = {}
@@ -299,17 +294,24 @@ def _read_points(path: Path, kind: str, unit_scale: float) -> dict[str, np.ndarr
         seen[pid] = ln
 
     def numbers(name: str, *, integer: bool = False, allow_empty: bool = False) -> np.ndarray:
-        out = np.empty(len(ids), dtype=np.float64)
-        for k, (s, ln) in enumerate(zip(cols[name], linenos)):
-            if s == "" and allow_empty:
-                out[k] = np.nan
-                continue
-            try:
-                out[k] = float(s)
-            except ValueError:
-                raise BundleError(f"not a number: {s!r}", source=path, field=f"line {ln}, column {name}") from None
-            if integer and (not np.isfinite(out[k]) or out[k] != int(out[k])):
-                raise BundleError(f"not an integer: {s!r}", source=path, field=f"line {ln}, column {name}")
+        """A column as numbers, parsed at once; where that fails, the first bad line is found and named."""
+        text = [("nan" if c == "" else c) for c in cols[name]] if allow_empty else cols[name]
+        try:
+            out = np.array(text, dtype=np.float64)
+        except ValueError:
+            values = []
+            for c, ln in zip(text, linenos):
+                try:
+                    values.append(float(c))
+                except ValueError:
+                    raise BundleError(f"not a number: {c!r}", source=path, field=f"line {ln}, column {name}") from None
+            out = np.array(values, dtype=np.float64)
+        if integer:
+            bad = ~np.isfinite(out) | (out != np.trunc(out))
+            if bad.any():
+                k = int(np.argmax(bad))
+                raise BundleError(f"not an integer: {cols[name][k]!r}", source=path,
+                                  field=f"line {linenos[k]}, column {name}")
         return out
 
     table: dict[str, np.ndarray] = {"id": ids}
