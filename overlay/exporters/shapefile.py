@@ -18,11 +18,13 @@ import zipfile
 from pathlib import Path
 from typing import TYPE_CHECKING
 
+import geopandas as gpd
+import numpy as np
 import pandas as pd
 import pyogrio
 
 from ..cautions import CAUTIONS
-from .gpkg import FIELD_DOCS, layer_frames
+from .gpkg import FIELD_DOCS, layers, to_output_frame
 
 if TYPE_CHECKING:
     from ..pipeline import RunResult
@@ -66,7 +68,11 @@ class ShapefileExporter:
     def write(self, result: "RunResult", path: Path) -> None:
         mapping: list[dict[str, object]] = []
         with tempfile.TemporaryDirectory() as tmp, zipfile.ZipFile(path, "w", zipfile.ZIP_DEFLATED) as zf:
-            for layer, frame, gtype in layer_frames(result):
+            _, crs = to_output_frame(result)
+            for lyr in layers(result):
+                layer, gtype = lyr.name, lyr.geometry_type
+                frame = gpd.GeoDataFrame({k: _series(v) for k, v in lyr.fields.items()},
+                                         geometry=gpd.GeoSeries(lyr.geometry, crs=crs), crs=crs)
                 fields = [c for c in frame.columns if c != "geometry"]
                 names = short_names(fields)
                 out = frame.copy()
@@ -93,6 +99,12 @@ class ShapefileExporter:
                 f"overlay {result.tool_version}.",
                 "Field names are cut to 10 characters: field_names.csv maps each to the GeoPackage field it stands for.",
                 "", *CAUTIONS, ""]))
+
+
+def _series(values: np.ndarray) -> pd.Series:
+    """A layer's column as pandas holds it (times as UTC)."""
+    col = pd.Series(values)
+    return col.dt.tz_localize("UTC") if values.dtype.kind == "M" else col
 
 
 def _convert(col: pd.Series) -> tuple[str, pd.Series]:
