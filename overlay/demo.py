@@ -135,7 +135,78 @@ def generate(dest: Path, scenario_dir: Path | None = None) -> Path:
             "outline": ellipse(d["center"], d["semi_axes"], d["rotation_deg"]).tolist(),
         })
     (dest / "truth.json").write_text(json.dumps(truth, indent=1))
+    write_sounding(dest, sc, truth)
     return site_path
+
+
+def write_sounding(dest: Path, sc: dict, truth: dict) -> None:
+    """The engineer's hammer sounding of spans ``[sounding].spans``, from the same truth, imperfect as
+    sounding is: a hollow smaller than ``min_area_m2`` or deeper than ``max_depth_m`` rings sound; an
+    outline is traced ``margin_m`` (± ``wobble_m``) outside the real edge; ``flip_share`` of the point
+    verdicts are wrong.  Two files: the traced areas as a GeoPackage layer in the map CRS, and a grid of
+    verdict points as a CSV in the drawing frame."""
+    import csv as csv_module
+
+    import geopandas as gpd
+    import shapely
+    from shapely.geometry import Polygon
+
+    from .frames import from_placement
+
+    cfg, st = sc["sounding"], sc["structure"]
+    rng = np.random.default_rng(int(sc["seed"]) + 1)  # its own stream: the scans stay as they were
+    xs = np.concatenate([[0.0], np.cumsum(st["spans_m"])])
+    spans = [shapely.box(xs[k - 1], 0.0, xs[k], st["deck_width_m"]) for k in cfg["spans"]]
+    area_sounded = shapely.union_all(spans)
+    panels = [(aid, shapely.Polygon(outline)) for aid, _, _, outline in deck_panels(st)]
+
+    def element_at(x: float, y: float) -> str:
+        return next((aid for aid, poly in panels if poly.covers(shapely.Point(x, y))), "")
+
+    heard = []
+    for d in truth["defects"]:
+        outline = Polygon(d["outline"])
+        if not area_sounded.contains(outline.centroid):
+            continue
+        if d["area_m2"] < cfg["min_area_m2"] or d["depth_m"] > cfg["max_depth_m"]:
+            continue  # the hammer does not hear it
+        angles = np.linspace(0, 2 * np.pi, 48, endpoint=False)
+        c = outline.centroid
+        grown = outline.buffer(cfg["margin_m"])
+        ring = []
+        for a in angles:  # a traced line wobbles around the grown outline
+            far = shapely.LineString([(c.x, c.y), (c.x + 5 * np.cos(a), c.y + 5 * np.sin(a))]).intersection(grown.exterior)
+            p = far if far.geom_type == "Point" else shapely.get_parts(far)[0]
+            k = 1.0 + rng.uniform(-1, 1) * cfg["wobble_m"] / max(p.distance(c), 1e-9)
+            ring.append((c.x + (p.x - c.x) * k, c.y + (p.y - c.y) * k))
+        heard.append((Polygon(ring), element_at(c.x, c.y), d["id"]))
+    to_map = from_placement(tuple(st["origin"]), st["bearing_deg"], 1.0, "m")
+    rows = [{"element": e, "date": cfg["date"], "note": f"traced hollow ({did})"} for _, e, did in heard]
+    path = dest / "sounding.gpkg"
+    path.unlink(missing_ok=True)
+    gpd.GeoDataFrame(rows, geometry=[to_map.apply_geometry(g) for g, _, _ in heard], crs=st["crs"]).to_file(
+        path, layer="hollow_areas", driver="GPKG", VERSION="1.3")  # a version the GIS of long-term distributions read
+    hollow_heard = shapely.union_all([g for g, _, _ in heard]) if heard else Polygon()
+    step = cfg["point_spacing_m"]
+    lines = []
+    for scan in sc["scans"]:
+        if "size" not in scan:  # the oblique angle scan lies on span 3, outside the sounding
+            continue
+        cx, cy = scan["center"]
+        w, h = scan["size"]
+        if not area_sounded.contains(shapely.Point(cx, cy)):
+            continue
+        for x in np.arange(cx - w / 2 + step / 2, cx + w / 2, step):
+            for y in np.arange(cy - h / 2 + step / 2, cy + h / 2, step):
+                hollow = hollow_heard.contains(shapely.Point(x, y))
+                if rng.uniform() < cfg["flip_share"]:
+                    hollow = not hollow
+                lines.append((round(float(x), 3), round(float(y), 3), "hollow" if hollow else "sound",
+                              element_at(float(x), float(y)), cfg["date"]))
+    with (dest / "sounding-points.csv").open("w", newline="") as fh:
+        w_ = csv_module.writer(fh)
+        w_.writerow(["x", "y", "verdict", "element", "date"])
+        w_.writerows(sorted(set(lines)))
 
 
 def ellipse(center: list[float], semi_axes: list[float], rotation_deg: float, n: int = 96) -> np.ndarray:

@@ -127,6 +127,8 @@ def _picture_tasks(result: "RunResult", dxf_path: Path | None) -> list[tuple[str
             tasks.append((f"field-{s.scan_id}", "field", s.scan_id))
     tasks += [(f"defect-{file_stem(d.defect_id)}", "defect", d.defect_id)
               for d in defects(result.zones, result.site.classes)]
+    if result.site.calibration is not None:
+        tasks.append(("calibration-roc", "roc", ""))
     return tasks + ([("dxf-preview", "dxf", "")] if dxf_path is not None else [])
 
 
@@ -171,6 +173,12 @@ def _draw(task: tuple[str, str, str]) -> bytes:
             _SHARED["defects"] = {d.defect_id: d for d in defects(result.zones, result.site.classes)}
         d = _SHARED["defects"][key]
         return pictures.defect_spectrum(result, d) if compact else pictures.defect_sheet(result, d)
+    if kind == "roc":
+        from .report import recorded_calibration
+
+        d = recorded_calibration(result)
+        assert d is not None
+        return pictures.roc_curve(d["roc"]["fpr"], d["roc"]["tpr"], d["auc"])
     return pictures.dxf_preview(dxf_path)
 
 

@@ -459,6 +459,61 @@ def site_map(result: "RunResult", drawing_lines: list[np.ndarray] | None = None)
     return _png(fig)
 
 
+def roc_curve(fpr: list[float], tpr: list[float], auc_value: float | None,
+              marks: list[tuple[float, float, str]] = ()) -> bytes:
+    """The ROC curve of VER against the sounding verdicts, the chance line, the AUC and marked levels."""
+    fig = plt.figure(figsize=(5.0, 4.4))
+    ax = fig.add_axes((0.14, 0.12, 0.8, 0.78))
+    ax.plot([0, 1], [0, 1], color="0.6", lw=0.8, ls="--", label="chance")
+    ax.plot(fpr, tpr, color="#D55E00", lw=1.6, drawstyle="default",
+            label=f"VER against sounding (AUC {auc_value:.3f})" if auc_value is not None else "VER against sounding")
+    for x, y, label in marks:
+        ax.plot([x], [y], "o", color="#0072B2", ms=5)
+        ax.annotate(label, (x, y), xytext=(6, -10), textcoords="offset points", fontsize=7)
+    ax.set_xlim(-0.01, 1.01)
+    ax.set_ylim(-0.01, 1.01)
+    ax.set_aspect("equal")
+    ax.set_xlabel("1 - specificity (sound points called hollow)")
+    ax.set_ylabel("sensitivity (hollow points found)")
+    ax.legend(loc="lower right", fontsize=7)
+    ax.set_title("scans against hammer sounding, over the VER levels", fontsize=9, y=TITLE_Y)
+    return _png(fig)
+
+
+def agreement_map(result: "RunResult", scan_hollow: object, traced: object, points: np.ndarray,
+                  agree: np.ndarray | None, level_db: float) -> bytes:
+    """Where the scans (at ``level_db``) and the sounding agree and disagree, on the drawing."""
+    fig, ax = plt.subplots(figsize=SITE_SIZE)
+    fig.subplots_adjust(**MARGINS["site"])
+    for s in result.scans:
+        _rings(ax, s.extent, color="0.55", lw=0.7, ls=":")
+    both = shapely.intersection(scan_hollow, traced)
+    for geom, colour, label in ((shapely.difference(scan_hollow, traced), "#E69F00", "scans only"),
+                                (shapely.difference(traced, scan_hollow), "#0072B2", "sounding only"),
+                                (both, "#009E73", "both")):
+        for part in shapely.get_parts(geom):
+            if part.geom_type == "Polygon" and not part.is_empty:
+                ax.add_patch(MplPolygon(np.asarray(part.exterior.coords), closed=True, fc=colour, ec=colour,
+                                        alpha=0.6, lw=0.6))
+    handles = [Patch(color=c, alpha=0.6, label=f"hollow: {t}") for c, t in
+               (("#009E73", "both"), ("#E69F00", "scans only"), ("#0072B2", "sounding only"))]
+    if len(points) and agree is not None:
+        ax.plot(points[agree, 0], points[agree, 1], "o", ms=2.5, color="0.2", label="point: agree")
+        ax.plot(points[~agree, 0], points[~agree, 1], "x", ms=4, color="#D55E00", label="point: disagree")
+        handles += [Line2D([], [], marker="o", ls="", color="0.2", ms=3, label="point: agree"),
+                    Line2D([], [], marker="x", ls="", color="#D55E00", ms=4, label="point: disagree")]
+    ax.set_aspect("equal")
+    ax.autoscale_view()
+    ax.margins(0.04)
+    ax.set_xlabel(f"drawing x ({result.site.drawing_unit})")
+    ax.set_ylabel(f"drawing y ({result.site.drawing_unit})")
+    fig.legend(handles=handles, loc="lower center", ncol=5, fontsize=8, frameon=False)
+    ax.set_title(f"scans at {level_db:g} dB against the sounding", fontsize=10, y=TITLE_Y)
+    _fit_height(fig, ax)
+    _scale_bar(ax, result.unit_m)
+    return _png(fig)
+
+
 def _fit_height(fig: plt.Figure, ax: plt.Axes, below_in: float = 1.0, above_in: float = 0.45) -> None:
     """Figure height to the data's aspect (equal axes), so a long structure is not a thin strip in white."""
     x0, x1 = ax.get_xlim()

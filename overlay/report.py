@@ -66,7 +66,58 @@ def settings_lines(result: "RunResult") -> list[tuple[str, str]]:
         ("map CRS", result.crs.to_string() if result.crs else "none (drawing frame only)"),
         ("scans", str(len(result.scans))),
         ("zones (class contours)", str(len(result.zones))),
+        ("class levels from a calibration", calibration_summary(result) or "none named in the site file"),
     ]
+
+
+def calibration_summary(result: "RunResult") -> str | None:
+    """Which calibration the site's class levels come from (file, its hash, when, against what, AUC)."""
+    d = recorded_calibration(result)
+    if d is None:
+        return None
+    return (f"{d['file']} (sha256 {d['file_sha256'][:12]}), made {d['made']} against the sounding {d['sounding']} "
+            f"of {', '.join(d['sounding_dates']) or 'an unknown date'}: AUC {fmt(d['auc'], '.3f')}, "
+            f"{d['n_points']} sounding points")
+
+
+def recorded_calibration(result: "RunResult") -> dict | None:
+    from .calibration import read_calibration
+
+    return read_calibration(result.site.calibration) if result.site.calibration is not None else None
+
+
+def calibration_rows(data: dict) -> list[dict[str, object]]:
+    """The agreement at each class level, by point and by area, as a calibration recorded it."""
+    areas = {a["class"]: a for a in data.get("class_areas", [])}
+    rows = []
+    for t in data.get("class_levels", []):
+        a = areas.get(t["class"], {})
+        rows.append({"class": t["class"], "level_db": t["level_db"], "sensitivity": t["sensitivity"],
+                     "sensitivity_95": t["sensitivity_95"], "specificity": t["specificity"],
+                     "specificity_95": t["specificity_95"], "kappa": t["kappa"], "iou": a.get("iou"),
+                     "found": a.get("found")})
+    return rows
+
+
+def interval(value: object, bounds: object) -> str:
+    """A proportion with its 95 % interval: "0.83 (0.70-0.91)"."""
+    if value is None:
+        return "-"
+    lo, hi = bounds if isinstance(bounds, (list, tuple)) else (None, None)
+    return f"{value:.2f}" + (f" ({lo:.2f}-{hi:.2f})" if lo is not None and hi is not None else "")
+
+
+def calibration_section(result: "RunResult") -> list[str]:
+    d = recorded_calibration(result)
+    if d is None:
+        return []
+    out = ["", "AGREEMENT WITH SOUNDING (the calibration the class levels come from; sounding is a reference, "
+           "not the truth)", "  " + (calibration_summary(result) or "")]
+    for r in calibration_rows(d):
+        out.append(f"  {r['class']:<10} {r['level_db']:>5g} dB  sensitivity {interval(r['sensitivity'], r['sensitivity_95'])}"
+                   f"  specificity {interval(r['specificity'], r['specificity_95'])}  kappa {fmt(r['kappa'], '.2f')}"
+                   f"  area IoU {fmt(r['iou'], '.2f')}  sounded area found {fmt(r['found'], '.2f')}")
+    return out
 
 
 def placement_text(t: "Similarity", drawing_unit_m: float) -> str:
@@ -125,6 +176,7 @@ def run_report(result: "RunResult") -> str:
     for s in result.scans:
         out += scan_section(s, result)
     out += quantities_section(result)
+    out += calibration_section(result)
     out += zone_section(result)
     if result.warnings:
         out += ["", "warnings:"] + [f"  {w}" for w in result.warnings]

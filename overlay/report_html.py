@@ -17,7 +17,8 @@ import html
 from typing import TYPE_CHECKING, Callable, Sequence
 
 from .quantities import asset_rows, class_columns, defect_rows, element_rows, zone_rows
-from .report import ID_SCHEME, dims, fit_text, fmt, settings_lines, span
+from .report import ID_SCHEME, calibration_rows, calibration_summary, dims, fit_text, fmt, interval, recorded_calibration, \
+    settings_lines, span
 
 if TYPE_CHECKING:
     from .pipeline import RunResult, ScanResult
@@ -114,6 +115,24 @@ def _quantities(result: "RunResult", elements: set[str] | None = None) -> list[s
     return parts
 
 
+def _agreement(result: "RunResult", img: Picture) -> list[str]:
+    """The agreement with sounding of the calibration the class levels come from (when the site names one)."""
+    d = recorded_calibration(result)
+    if d is None:
+        return []
+    rows = calibration_rows(d)
+    return ["<h2>Agreement with sounding</h2>",
+            f"<p>The class levels come from the calibration {html.escape(calibration_summary(result) or '')}. "
+            "Sounding is a reference, not the truth: it misses small and deep hollows and traces edges generously. "
+            "Intervals are 95 % Wilson score intervals.</p>",
+            _table(rows, [_col("class", "class"), _col("level_db", "level", "g", "dB"),
+                          ("sensitivity", "sensitivity", lambda r: interval(r["sensitivity"], r["sensitivity_95"])),
+                          ("specificity", "specificity", lambda r: interval(r["specificity"], r["specificity_95"])),
+                          _col("kappa", "kappa", ".2f"), _col("iou", "area IoU", ".2f"),
+                          _col("found", "sounded area found", ".2f")]),
+            img("calibration-roc", "ROC curve of VER against the sounding verdicts")]
+
+
 def _scan(s: "ScanResult", result: "RunResult", img: Picture) -> list[str]:
     esc = html.escape
     site = result.site
@@ -152,6 +171,7 @@ def site_report(result: "RunResult", images: dict[str, bytes]) -> str:
     for e in elements_with_zones(result):
         parts.append(img(f"element-{file_stem(e)}", f"zones of element {e}"))
     parts += _quantities(result)
+    parts += _agreement(result, img)
     for s in result.scans:
         parts += _scan(s, result, img)
     parts += ["<h2>Defect spectra</h2>", *_defect_pictures(result, img)]
@@ -213,6 +233,7 @@ def report_pages(result: "RunResult", img: Picture) -> dict[str, str]:
                      f"<br>{esc(e)}</a>")
     index.append("</div>")
     index += _quantities(result)
+    index += _agreement(result, img)
     without = [e for e in _scanned_elements(result) if e not in with_zones]
     if without:
         index += ["<h2>Elements scanned without a zone</h2><p>",

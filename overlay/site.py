@@ -169,6 +169,7 @@ class Site:
     merge: MergeSpec | None = None
     basename: str = "overlay"
     formats: tuple[str, ...] = DEFAULT_FORMATS
+    calibration: Path | None = None  # the calibration the class levels come from (overlay calibrate's JSON)
 
     @property
     def folder(self) -> Path:
@@ -209,6 +210,14 @@ def read_site(path: str | Path) -> Site:
     zt = _table(doc, "zones")
     min_area = zt.number("min_area_m2", 0.01, minimum=0.0) or 0.0
     classes = _classes(zt)
+    calibration = None
+    if zt.string("calibration") is not None:
+        from .calibration import read_calibration
+
+        calibration = path.parent / (zt.string("calibration") or "")
+        if not calibration.is_file():
+            raise zt.fail("calibration", f"file not found: {calibration}")
+        read_calibration(calibration)  # a file that is not a calibration is refused now, not after the run
 
     concrete = _concrete(doc)
     rp = _table(doc, "repair")
@@ -284,6 +293,7 @@ def read_site(path: str | Path) -> Site:
         merge=merge,
         basename=basename,
         formats=tuple(formats),
+        calibration=calibration,
     )
 
 

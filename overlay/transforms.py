@@ -58,6 +58,12 @@ class Similarity(_Plane):
         x, y = xy[..., 0], xy[..., 1]
         return np.stack([self.a * x - self.b * y + self.tx, self.b * x + self.a * y + self.ty], axis=-1)
 
+    def inverse(self) -> "Similarity":
+        """The transform back: x = (a·(x' − tx) + b·(y' − ty)) / (a² + b²), likewise y."""
+        k = self.a * self.a + self.b * self.b
+        a, b = self.a / k, -self.b / k
+        return Similarity(a=a, b=b, tx=-(a * self.tx - b * self.ty), ty=-(b * self.tx + a * self.ty))
+
     def then(self, other: "Similarity") -> "Similarity":
         """This transform followed by ``other``."""
         return Similarity(

@@ -16,9 +16,9 @@ from typing import Sequence
 
 from .. import __version__
 from ..errors import EXIT_UNEXPECTED, EXIT_USAGE, OverlayError, OverlayWarning
-from . import demo, describe, exporters, importing, run
+from . import calibrate, demo, describe, exporters, importing, run
 
-COMMANDS = (run, demo, describe, importing, exporters)
+COMMANDS = (run, calibrate, demo, describe, importing, exporters)
 
 EPILOG = """exit codes: 0 done, 1 unexpected error, 2 usage, 3 bad input (bundle, site file, records),
 4 registration or CRS check failed, 5 output conflict (would overwrite or clash)"""

@@ -242,6 +242,11 @@ FIELD_DOCS: dict[str, dict[str, tuple[str, str]]] = {  # field: (title a GIS sho
         "fit_passed": ("Fit passed", "true when every target residual is within the tolerance"),
         "fit_override": ("Misfit accepted", "true when a failed fit was accepted by override"),
         "fit_tolerance_m": ("Fit tolerance (m)", "worst target residual allowed, metres on the structure"),
+        "calibration_file": ("Calibration", "the calibration against sounding the class levels come from (empty: none "
+                             "named in the site file)"),
+        "calibration_sha256": ("Calibration file hash", "SHA-256 of that calibration file"),
+        "calibration_made": ("Calibration made (UTC)", "when the calibration was made, UTC"),
+        "calibration_auc": ("Calibration AUC", "area under the ROC curve of VER against the sounding verdicts, 0-1"),
     },
 }
 
@@ -288,11 +293,15 @@ RUN_KINDS = {"run_started": "M", "tool_version": "t", "site": "t", "structure": 
              "gate": "t", "reference_method": "t", "reference_energy": "f", "reference_detail": "t",
              "field_span_db": "f", "field_scatter_db": "f", "incidence": "t", "fit_model": "t", "fit_frame": "t",
              "fit_params": "t", "fit_rms": "f", "fit_max": "f", "fit_tolerance_m": "f", "fit_passed": "b",
-             "fit_override": "b", "settings": "t", "cautions": "t"}
+             "fit_override": "b", "calibration_file": "t", "calibration_sha256": "t", "calibration_made": "M",
+             "calibration_auc": "f", "settings": "t", "cautions": "t"}
 
 
 def _runs(result: "RunResult") -> Layer:
-    """The non-spatial runs table: one row per scan with the run's settings, fit and reference."""
+    """The non-spatial runs table: one row per scan with the run's settings, fit, reference and calibration."""
+    from ..report import recorded_calibration
+
+    cal = recorded_calibration(result) or {}
     rows = []
     for s in result.scans:
         rows.append({
@@ -317,6 +326,10 @@ def _runs(result: "RunResult") -> Layer:
             "fit_tolerance_m": result.site.tolerance_m,
             "fit_passed": bool(s.fit_passed),
             "fit_override": bool(result.site.accept_misfit and not s.fit_passed),
+            "calibration_file": cal.get("file", ""),
+            "calibration_sha256": cal.get("file_sha256", ""),
+            "calibration_made": cal.get("made", ""),
+            "calibration_auc": cal.get("auc") if cal.get("auc") is not None else np.nan,
             "settings": json.dumps(result.settings(), sort_keys=True),
             "cautions": " ".join(CAUTIONS),
         })
