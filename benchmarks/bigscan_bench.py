@@ -22,7 +22,6 @@ from __future__ import annotations
 
 import argparse
 import os
-import resource
 import statistics
 import subprocess
 import sys
@@ -94,11 +93,13 @@ def floor(records: Path) -> float:
 def run(site: Path, out: Path, *extra: str) -> tuple[float, float]:
     """(wall seconds, peak resident MB) of `overlay run` in a fresh process."""
     t0 = time.perf_counter()
-    done = subprocess.run([sys.executable, "-c", "import resource, sys; from overlay.cli.main import main; "
+    # peak memory as the kernel keeps it for this process image (VmHWM): getrusage's ru_maxrss would also
+    # count the benchmark's own memory, which a forked child carries until it execs
+    done = subprocess.run([sys.executable, "-c", "import sys; from overlay.cli.main import main; "
                            "code = main(sys.argv[1:]); "
-                           "print(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss, file=sys.stderr); "
-                           "sys.exit(code)", "run", str(site), "--out", str(out), "--no-cache", "--overwrite",
-                           "-q", *extra], capture_output=True, text=True)
+                           "print([l.split()[1] for l in open('/proc/self/status') if l.startswith('VmHWM')][0], "
+                           "file=sys.stderr); sys.exit(code)", "run", str(site), "--out", str(out), "--no-cache",
+                           "--overwrite", "-q", *extra], capture_output=True, text=True)
     wall = time.perf_counter() - t0
     if done.returncode != 0:
         raise SystemExit(done.stderr)
