@@ -10,6 +10,7 @@ a scan's result lets a rerun recompute only the scans that changed.
 from __future__ import annotations
 
 import contextlib
+import dataclasses
 import ctypes
 import functools
 import hashlib
@@ -158,10 +159,19 @@ def _one_thread() -> None:
     spectra.DEFAULT_THREADS = 1
 
 
-def _pool_worker() -> None:
-    """A process-pool worker: one spectra thread, and it ends with its parent."""
+_SITE: list[Site] = []  # the site a pool worker was started with (sent once per worker, not with every scan)
+
+
+def _pool_worker(site: Site | None = None) -> None:
+    """A process-pool worker: the site it will work for, one spectra thread, and it ends with its parent."""
+    _SITE[:] = [site] if site is not None else []
     _one_thread()
     _die_with_parent()
+
+
+def _work_here(entry: ScanEntry) -> tuple[ScanResult | None, Failure | None, list[str]]:
+    """One scan in a pool worker, for the site the worker was started with."""
+    return _work(entry, _SITE[0])
 
 
 def _die_with_parent() -> None:
@@ -191,8 +201,11 @@ def _map_local(entries: list[ScanEntry], site: Site, jobs: int, progress: Callab
                ) -> Iterable[tuple[Any, ...]]:
     if jobs <= 1:
         return (_work(e, site, progress) for e in entries)
-    pool = ProcessPoolExecutor(max_workers=jobs, initializer=_pool_worker)
-    futures = [pool.submit(_work, e, site) for e in entries]
+    # each task carries its own entry only: the site (without its list of scans, which grows with the
+    # campaign) goes to each worker once, so a task costs the same in a campaign of 50 or 12,800 scans
+    pool = ProcessPoolExecutor(max_workers=jobs, initializer=_pool_worker,
+                               initargs=(dataclasses.replace(site, scans=[]),))
+    futures = [pool.submit(_work_here, e) for e in entries]
 
     def results() -> Iterable[tuple[Any, ...]]:
         try:
@@ -213,7 +226,7 @@ def _map_dask(entries: list[ScanEntry], site: Site, address: str) -> Iterable[tu
     except (OSError, TimeoutError) as exc:
         raise OverlayError(f"cannot reach the Dask scheduler at {address} ({exc})", field="--dask") from exc
     with client:
-        shared = client.scatter(site, broadcast=True)  # sent once, not with every task
+        shared = client.scatter(dataclasses.replace(site, scans=[]), broadcast=True)  # sent once, not with every task
         futures = client.map(_work, entries, site=shared, single_thread=True, pure=False)
         yield from client.gather(futures)
 

@@ -113,3 +113,36 @@ def test_cli_jobs_two_and_an_unreachable_scheduler(site_copy: Path, tmp_path: Pa
     err = capsys.readouterr().err
     assert code == 1 and "cannot reach the Dask scheduler at tcp://127.0.0.1:9" in err
     assert len(err.strip().splitlines()) == 1
+
+
+def test_a_task_carries_its_own_scan_only(site_copy: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    # what each pool task sends does not grow with the campaign: the site goes to each worker once,
+    # without its list of scans (a site listing 5,000 entries sends the same task as one listing 6)
+    import concurrent.futures
+    import dataclasses
+    import pickle
+
+    import overlay.campaign as campaign
+
+    sent: list[int] = []
+    started: list[int] = []
+    real_submit = concurrent.futures.ProcessPoolExecutor.submit
+    real_init = concurrent.futures.ProcessPoolExecutor.__init__
+
+    def submit(self, fn, *args, **kwargs):
+        sent.append(len(pickle.dumps((fn, args, kwargs))))
+        return real_submit(self, fn, *args, **kwargs)
+
+    def init(self, *args, **kwargs):
+        started.append(len(pickle.dumps(kwargs.get("initargs", ()))))
+        real_init(self, *args, **kwargs)
+
+    monkeypatch.setattr(concurrent.futures.ProcessPoolExecutor, "submit", submit)
+    monkeypatch.setattr(concurrent.futures.ProcessPoolExecutor, "__init__", init)
+    site = read_site(site_copy)
+    entries = site.scans[:2]
+    big = dataclasses.replace(site, scans=list(site.scans) * 1000)
+    for s in (site, big):
+        results = list(campaign._map_local(entries, s, 2, None))
+        assert [r[1] for r in results] == [None, None]  # both scans done
+    assert sent[:2] == sent[2:] and started[0] == started[1]
