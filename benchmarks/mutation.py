@@ -46,6 +46,7 @@ CORE: dict[str, list[str]] = {
     "quantities": ["tests/test_exporters.py", "tests/test_drawing.py", "tests/test_gis_clients.py"],
     "merge": ["tests/test_merge.py"],
     "mosaic": ["tests/test_campaign.py", "tests/test_demo.py"],
+    "agreement": ["tests/test_calibration.py"],
 }
 NOT_RESULTS = [r"^\s*raise\b", r"warnings\.warn\(", r"^\s*(msg|hint|why|problem) = "]  # messages, not numbers
 STATUS = re.compile(r"^\s*(\S+): (.+)$")

@@ -1,4 +1,4 @@
-"""Benchmark of the reports over a campaign (issue 20); figures go to docs/performance.md.
+"""Benchmark of the reports over a campaign; figures go to docs/performance.md.
 
     .venv/bin/python benchmarks/report_bench.py              # 200 scans, ≈ 3 min
     .venv/bin/python benchmarks/report_bench.py --scans 60   # quicker

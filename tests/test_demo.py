@@ -32,7 +32,7 @@ def test_zone_centroids_sit_on_their_defects(demo: dict) -> None:
 
 
 def test_contour_areas_match_the_predicted_level_sets(demo: dict) -> None:
-    # tolerance 15 % (issue 2); checked where the predicted contour is at least two grid spacings
+    # tolerance 15 %; checked where the predicted contour is at least two grid spacings
     # in equivalent radius, below that a contour has too few points to carry its area
     spacing = demo["truth"]["spacing_m"]
     checked = 0
@@ -157,7 +157,7 @@ def test_element_shares_from_the_asset_register(demo: dict) -> None:
 
 
 def test_zones_land_within_a_quarter_spacing_and_the_angle_scan_is_projective(demo: dict) -> None:
-    # issue 5: every detectable defect's zone centroid within a quarter of the grid spacing of the truth
+    # every detectable defect's zone centroid within a quarter of the grid spacing of the truth
     quarter = demo["truth"]["spacing_m"] / 4
     for d in _defects(demo):
         if d["detectable"]:

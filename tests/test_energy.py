@@ -64,3 +64,80 @@ def test_median_and_region_references() -> None:
         reference_energy(e, valid, "region", region=np.arange(200) < 2)
     with pytest.raises(SignalError, match="needs a healthy_region"):
         reference_energy(e, valid, "region")
+
+
+# --- every reference choice on numbers (numpy as the reference library) ------------------------------
+
+def _field(span_db: float, seed: int = 3) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Sound concrete under a plane field of ``span_db`` over a 2 m × 1.6 m scan, 0.3 dB scatter."""
+    rng = np.random.default_rng(seed)
+    rr, cc = np.mgrid[0:41, 0:51]
+    xy = np.column_stack([cc.ravel(), rr.ravel()]) * 0.04
+    field_db = span_db * (xy[:, 0] / 2.0)  # rises by span_db from left to right
+    energy = 1e-8 * 10 ** ((field_db + rng.normal(0, 0.3, len(xy))) / 10)
+    return xy, energy, field_db
+
+
+def test_auto_keeps_the_percentile_on_a_uniform_field() -> None:
+    xy, e, _ = _field(0.0)
+    valid = np.ones(len(e), bool)
+    valid[5] = False
+    e[5] = 1e-3  # an invalid point: not part of any statistic
+    ref = reference_energy(e, valid, "auto", 10.0, xy_m=xy)
+    assert ref.method == "percentile" and ref.auto and ref.level_db is None
+    assert ref.energy == pytest.approx(np.percentile(e[valid], 10.0), rel=1e-12)
+    assert ref.n_points == int(valid.sum()) and ref.field_span_db < 1.0
+    assert "within the 1 dB a scan-wide reference stands" in ref.describe()
+    assert f"{valid.sum()} valid points" in ref.describe()
+
+
+def test_auto_measures_against_the_local_field_when_it_varies() -> None:
+    xy, e, field_db = _field(4.0)
+    valid = np.ones(len(e), bool)
+    ref = reference_energy(e, valid, "auto", 10.0, xy_m=xy)
+    assert ref.method == "trend" and ref.auto and ref.percentile == 10.0 and ref.n_points == len(e)
+    assert ref.field_span_db == pytest.approx(4.0, abs=0.3)
+    # the reference follows the field: against it the sound points read about 0 dB everywhere, the
+    # left and the right half alike (a scan-wide reference would put them 4 dB apart)
+    v = ver_db(e, ref.at_points())
+    left, right = v[xy[:, 0] < 0.5], v[xy[:, 0] > 1.5]
+    assert abs(np.median(left) - np.median(right)) < 0.3 and abs(np.percentile(v, 10.0)) < 0.05
+    assert ref.energy == pytest.approx(float(10 ** (np.median(ref.level_db) / 10)), rel=1e-12)
+    assert "chosen automatically: the field spans more than 1 dB" in ref.describe()
+    trend = reference_energy(e, valid, "trend", 10.0, xy_m=xy)
+    assert trend.method == "trend" and not trend.auto
+    np.testing.assert_allclose(trend.level_db, ref.level_db)
+    assert "chosen automatically" not in trend.describe()
+
+
+def test_trend_needs_coordinates() -> None:
+    with pytest.raises(SignalError, match="needs at least 30 valid points with coordinates"):
+        reference_energy(np.ones(50), np.ones(50, bool), "trend")
+
+
+def test_region_counts_only_its_valid_points() -> None:
+    e = np.arange(1.0, 11.0)
+    valid = np.ones(10, bool)
+    valid[0] = False  # inside the region but invalid
+    region = np.arange(10) < 4  # points 0..3
+    ref = reference_energy(e, valid, "region", region=region)
+    assert ref.energy == pytest.approx(np.median(e[1:4])) and ref.n_points == 3  # exactly the minimum count
+    assert "median of the healthy region" in ref.describe()
+
+
+def test_percentile_bounds_and_a_fractional_percentile() -> None:
+    e = np.linspace(1.0, 2.0, 101)
+    ok = np.ones(101, bool)
+    assert reference_energy(e, ok, "percentile", 0.5).energy == pytest.approx(np.percentile(e, 0.5), rel=1e-12)
+    assert reference_energy(e, ok, "percentile", 0.0).energy == pytest.approx(1.0)
+    assert reference_energy(e, ok, "percentile", 100.0).energy == pytest.approx(2.0)
+    for bad in (-0.1, 100.1):
+        with pytest.raises(SignalError, match="must lie in 0..100"):
+            reference_energy(e, ok, "percentile", bad)
+    assert reference_energy(e, ok, "minimum").describe().startswith("minimum of 101 valid points")
+
+
+def test_ver_of_zero_and_missing_energy() -> None:
+    out = ver_db(np.array([0.0, np.nan, 10.0]), 10.0)
+    assert out[0] == -np.inf and np.isnan(out[1]) and out[2] == 0.0
+    np.testing.assert_allclose(ver_db(np.array([2.0, 8.0]), np.array([1.0, 2.0])), [3.0103, 6.0206], atol=1e-4)
