@@ -16,6 +16,7 @@ import math
 from dataclasses import dataclass
 from typing import Sequence
 
+import numpy as np
 import shapely
 import shapely.ops
 from shapely.geometry import LineString, Polygon, box
@@ -46,65 +47,64 @@ LEADER_DETOUR = 4  # rings searched beyond the nearest clear box for one whose l
 Bounds = tuple[float, float, float, float]
 
 
-def _overlap(a: Bounds, b: Bounds) -> bool:
-    return a[0] <= b[2] and b[0] <= a[2] and a[1] <= b[3] and b[1] <= a[3]
+class _Layer:
+    """Geometries already on the drawing, as numpy arrays of their bounds: a candidate box is tested
+    against all of them at once (the rectangles — labels, text boxes — by their bounds alone, the other
+    shapes by their bounds first and their outline only where those meet), sixteen candidates a ring."""
 
+    def __init__(self) -> None:
+        self._rects, self._other = np.zeros((64, 4)), np.zeros((64, 4))  # room to grow, doubled when full
+        self.n_rects = self.n_other = 0
+        self.shapes: list[BaseGeometry] = []
 
-class _Grid:
-    """Geometries bucketed by a square grid, so a check looks only at what lies near (a drawing of a
-    thousand scans places its labels in seconds, not minutes); the few that span many cells are
-    checked always.  Axis-parallel rectangles (labels, text boxes) are told apart by their bounds
-    alone, without building a geometry per candidate."""
+    @property
+    def rects(self) -> np.ndarray:
+        return self._rects[: self.n_rects]
 
-    def __init__(self, cell: float):
-        self.cell = cell
-        self.buckets: dict[tuple[int, int], list[int]] = {}
-        self.items: list[tuple[Bounds, BaseGeometry | None]] = []  # (bounds, geometry unless a rectangle)
-        self.big: list[int] = []
-
-    def _span(self, bounds: Bounds) -> tuple[range, range]:
-        x0, y0, x1, y1 = bounds
-        c = self.cell
-        return range(math.floor(x0 / c), math.floor(x1 / c) + 1), range(math.floor(y0 / c), math.floor(y1 / c) + 1)
+    @property
+    def other(self) -> np.ndarray:
+        return self._other[: self.n_other]
 
     def add(self, g: BaseGeometry) -> None:
-        k = len(self.items)
-        bounds = g.bounds
-        rect = g.geom_type == "Polygon" and abs(g.area - (bounds[2] - bounds[0]) * (bounds[3] - bounds[1])) <= 1e-12 * (
-            1.0 + g.area) and len(g.exterior.coords) == 5
-        self.items.append((bounds, None if rect else g))
-        xs, ys = self._span(bounds)
-        if len(xs) * len(ys) > 64:
-            self.big.append(k)
-            return
-        for i in xs:
-            for j in ys:
-                self.buckets.setdefault((i, j), []).append(k)
+        b = g.bounds
+        rect = g.geom_type == "Polygon" and len(g.exterior.coords) == 5 and abs(
+            g.area - (b[2] - b[0]) * (b[3] - b[1])) <= 1e-12 * (1.0 + g.area)
+        if rect:
+            self._rects = _put(self._rects, self.n_rects, b)
+            self.n_rects += 1
+        else:
+            self._other = _put(self._other, self.n_other, b)
+            self.n_other += 1
+            self.shapes.append(g)
 
-    def _near(self, bounds: Bounds) -> list[int]:
-        xs, ys = self._span(bounds)
-        if len(xs) * len(ys) > 64:
-            return list(range(len(self.items)))
-        near = set(self.big)
-        for i in xs:
-            for j in ys:
-                near.update(self.buckets.get((i, j), ()))
-        return sorted(near)
+    def blocked(self, boxes: np.ndarray) -> np.ndarray:
+        """For each box (k, 4) whether anything here meets it."""
+        out = _overlaps(boxes, self.rects).any(axis=1)
+        near = _overlaps(boxes, self.other)
+        for i in np.nonzero(~out & near.any(axis=1))[0]:
+            shape = box(*boxes[i])
+            out[i] = any(shape.intersects(self.shapes[j]) for j in np.nonzero(near[i])[0])
+        return out
 
-    def hits(self, bounds: Bounds, g: BaseGeometry | None = None) -> bool:
-        """Whether anything here meets the rectangle ``bounds`` (or, given, the geometry ``g`` within them)."""
-        shape = g
-        for k in self._near(bounds):
-            theirs, geom = self.items[k]
-            if not _overlap(bounds, theirs):
-                continue
-            if geom is None and g is None:
-                return True
-            if shape is None:
-                shape = box(*bounds)
-            if shape.intersects(geom if geom is not None else box(*theirs)):
-                return True
-        return False
+    def crossed(self, line: LineString) -> bool:
+        """Whether the line meets anything here."""
+        b = np.asarray(line.bounds)[None, :]
+        if any(line.intersects(box(*r)) for r in self.rects[_overlaps(b, self.rects)[0]]):
+            return True
+        return any(line.intersects(self.shapes[j]) for j in np.nonzero(_overlaps(b, self.other)[0])[0])
+
+
+def _put(rows: np.ndarray, n: int, bounds: Bounds) -> np.ndarray:
+    if n == len(rows):
+        rows = np.vstack([rows, np.zeros_like(rows)])
+    rows[n] = bounds
+    return rows
+
+
+def _overlaps(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """(len(a), len(b)) whether bounds a[i] and b[j] meet."""
+    return ((a[:, None, 0] <= b[None, :, 2]) & (b[None, :, 0] <= a[:, None, 2])
+            & (a[:, None, 1] <= b[None, :, 3]) & (b[None, :, 1] <= a[:, None, 3]))
 
 
 class _Board:
@@ -113,28 +113,38 @@ class _Board:
 
     def __init__(self, items: Sequence[Item], obstacles: Sequence[BaseGeometry], gap: float, within: Bounds | None):
         self.gap, self.within = gap, within
-        cell = max([max(it.width, it.height) for it in items] + [gap]) * 2
-        self.placed = _Grid(cell)
-        self.obstacles = _Grid(cell)
+        self.placed = _Layer()
+        self.obstacles = _Layer()
         for o in obstacles:
             if not o.is_empty:
                 self.obstacles.add(o)
         self.zones = shapely.STRtree([it.zone for it in items]) if items else None
 
-    def box_clear(self, b: Bounds, own: int) -> bool:
+    def clear(self, boxes: np.ndarray, own: int) -> np.ndarray:
+        """For each candidate box (k, 4) whether it is clear (see the module docstring)."""
         g = self.gap / 2
-        grown = (b[0] - g, b[1] - g, b[2] + g, b[3] + g)
+        grown = boxes + np.array([-g, -g, g, g])
+        ok = np.ones(len(boxes), dtype=bool)
         w = self.within
-        if w is not None and not (w[0] <= grown[0] and grown[2] <= w[2] and w[1] <= grown[1] and grown[3] <= w[3]):
-            return False
-        return (not self.placed.hits(grown) and not self.obstacles.hits(grown)
-                and self._zones_clear(box(*grown), own))
+        if w is not None:
+            ok &= (w[0] <= grown[:, 0]) & (grown[:, 2] <= w[2]) & (w[1] <= grown[:, 1]) & (grown[:, 3] <= w[3])
+        for layer in (self.placed, self.obstacles):
+            idx = np.nonzero(ok)[0]
+            if idx.size:
+                ok[idx] &= ~layer.blocked(grown[idx])
+        idx = np.nonzero(ok)[0]
+        if idx.size and self.zones is not None:
+            cand, hit = self.zones.query(shapely.box(*grown[idx].T), predicate="intersects")
+            for c, k in zip(cand, hit):
+                if int(k) != own:
+                    ok[idx[c]] = False
+        return ok
 
     def leader_clear(self, line: LineString, own: int) -> tuple[bool, bool]:
         """(crosses no label or leader, crosses nothing else either)."""
-        if self.placed.hits(line.bounds, line):
+        if self.placed.crossed(line):
             return False, False
-        return True, not self.obstacles.hits(line.bounds, line) and self._zones_clear(line, own)
+        return True, not self.obstacles.crossed(line) and self._zones_clear(line, own)
 
     def _zones_clear(self, g: BaseGeometry, own: int) -> bool:
         return self.zones is None or all(int(k) == own for k in self.zones.query(g, predicate="intersects"))
@@ -158,7 +168,7 @@ def place_labels(items: Sequence[Item], gap: float, obstacles: Sequence[BaseGeom
     for i in order:
         it = items[i]
         spot = _inside(it, gap)
-        if spot is not None and board.box_clear(spot.bounds, i):
+        if spot is not None and board.clear(np.asarray([spot.bounds]), i)[0]:
             p = it.zone.representative_point()
             placed.append(Placed(it.key, spot, True, (p.x, p.y)))
             board.add(spot, None)
@@ -201,25 +211,24 @@ def _outside(it: Item, own: int, board: _Board, rings: int, optional: bool
     nearest: tuple[Polygon, tuple[float, float], int] | None = None
     boxed: tuple[Polygon, tuple[float, float], int] | None = None  # a clear box whose leader crosses a label
     first: Polygon | None = None
+    hw, hh = it.width / 2, it.height / 2
     for ring in range(1, rings + 1):
-        for k in range(DIRECTIONS):
-            a = 2 * math.pi * k / DIRECTIONS + (math.pi / DIRECTIONS if ring % 2 else 0.0)
-            # the box's near edge sits ring·step beyond the zone's bounding box in direction a
-            dx = (x1 - x0) / 2 + it.width / 2 + ring * step
-            dy = (y1 - y0) / 2 + it.height / 2 + ring * step
-            bx, by = cx + math.cos(a) * dx, cy + math.sin(a) * dy
-            bounds = (bx - it.width / 2, by - it.height / 2, bx + it.width / 2, by + it.height / 2)
-            if first is None:
-                first = box(*bounds)
-            if board.box_clear(bounds, own):
-                b = box(*bounds)
-                anchor = _nearest(it.zone, b)
-                no_label, nothing = board.leader_clear(_leader(b, anchor), own)
-                if nothing:
-                    return b, anchor
-                if no_label and nearest is None:
-                    nearest = (b, anchor, ring)
-                boxed = boxed or (b, anchor, ring)
+        a = 2 * math.pi * np.arange(DIRECTIONS) / DIRECTIONS + (math.pi / DIRECTIONS if ring % 2 else 0.0)
+        # the box's near edge sits ring·step beyond the zone's bounding box in direction a
+        bx = cx + np.cos(a) * ((x1 - x0) / 2 + hw + ring * step)
+        by = cy + np.sin(a) * ((y1 - y0) / 2 + hh + ring * step)
+        cands = np.column_stack([bx - hw, by - hh, bx + hw, by + hh])
+        if first is None:
+            first = box(*cands[0])
+        for k in np.nonzero(board.clear(cands, own))[0]:
+            b = box(*cands[k])
+            anchor = _nearest(it.zone, b)
+            no_label, nothing = board.leader_clear(_leader(b, anchor), own)
+            if nothing:
+                return b, anchor
+            if no_label and nearest is None:
+                nearest = (b, anchor, ring)
+            boxed = boxed or (b, anchor, ring)
         found = nearest or boxed
         if found is not None and ring >= found[2] + LEADER_DETOUR:
             break

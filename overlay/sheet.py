@@ -343,7 +343,10 @@ def _paper_labels(pen: _Pen, found: Sequence[Any], d: Detail, per_mm: float, mov
 
     r = d.paper
     frame = shapely.box(r.x0, r.y0, r.x1, r.y1)
-    marks = [b for b in (to_paper(g) for g in symbols) if b.intersects(frame)]
+    m = d.model  # only the symbols this view shows are brought onto paper
+    near = [g for g in symbols if g.bounds[0] <= m.x1 and g.bounds[2] >= m.x0 and g.bounds[1] <= m.y1
+            and g.bounds[3] >= m.y0]
+    marks = [b for b in (to_paper(g) for g in near) if b.intersects(frame)]
     items = []
     for f in found:
         zone = to_paper(f.lowest.defect if not f.lowest.defect.is_empty else f.lowest.contour)

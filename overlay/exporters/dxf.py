@@ -176,6 +176,7 @@ class DxfExporter:
         msp = doc.modelspace()
         before = {e.dxf.handle for e in msp}
         owners_box = bbox.extents(msp) if len(msp) else None
+        owners_text = _text_boxes(msp)  # the owner's text and symbols: our labels keep off them
         drawn = [move(g) for g in _our_geometries(result)]
         plan = sheet.plan_sheet(style.sheet, _bounds(drawn, owners_box), unit_m, style.plot_scale, result, move)
         text = Lettering(plan.scale, style.label_height_mm * plan.per_mm, style.note_height_mm * plan.per_mm,
@@ -193,12 +194,17 @@ class DxfExporter:
             if zone.defect_id == zone.zone_id:
                 _defect(msp, zone, move, fixed)
         _scans(msp, result, move, fixed, text, k)
-        around = _text_boxes(msp)  # the owner's text and our target symbols
+        h = text.note  # our target symbols: a cross of half-size h (their boxes known without measuring)
+        around = owners_text + [shapely.box(t.drawing[0] * k - h, t.drawing[1] * k - h, t.drawing[0] * k + h,
+                                            t.drawing[1] * k + h) for sc in result.scans for t in sc.targets]
         placed = _labels(msp, result, move, style, text, around)
         zones = [move(z.contour) for z in result.zones] + [move(z.defect) for z in result.zones if not z.defect.is_empty]
         leaders = [LineString([p.anchor, leader_end(p.box, p.anchor)]) for p in placed if not p.inside]
-        _names(msp, result, move, fixed, text, style, k, around + [p.box for p in placed] + leaders + zones)
-        _legend_and_note(msp, result, style, text, _bounds([], bbox.extents(msp)))
+        names = _names(msp, result, move, fixed, text, style, k, around + [p.box for p in placed] + leaders + zones)
+        # the legend goes below everything drawn: bounds we know (measuring every entity again costs a second
+        # on a campaign's drawing); the labels' boxes with a line's height to spare for the font's own measure
+        spare = [p.box.buffer(text.label, join_style="mitre") for p in placed]
+        _legend_and_note(msp, result, style, text, _bounds(drawn + around + spare + names, owners_box))
         sheet.callouts(msp, plan, fixed["detail"], text.note, style.text_style)
         for e in msp:  # mark everything we drew, so a rerun can take it away again
             if e.dxf.handle not in before and not e.has_xdata(APPID):
@@ -327,7 +333,7 @@ def _scans(msp: Any, result: "RunResult", move: Any, fixed: dict[str, str], text
 
 
 def _names(msp: Any, result: "RunResult", move: Any, fixed: dict[str, str], text: Lettering, style: "DxfStyle",
-           k: float, obstacles: list[Polygon]) -> None:
+           k: float, obstacles: list[Polygon]) -> list[Polygon]:
     """Scan and target names, placed like the defect labels: clear of each other, of every label and
     leader, of the defects' zones and of the symbols; a thin leader where a name had to move away.
     A name with no clear place within NAME_RINGS rings of its symbol is left out: at a scale where
@@ -344,13 +350,15 @@ def _names(msp: Any, result: "RunResult", move: Any, fixed: dict[str, str], text
             x, y = t.drawing[0] * k, t.drawing[1] * k
             items.append(Item(t.name, shapely.box(x - h, y - h, x + h, y + h), font.text_width(t.name), h * 1.35))
     unique = list({it.key: it for it in items}.values())  # a target seen by two scans is named once
-    for p in place_labels(unique, gap=h * 0.4, obstacles=obstacles, rings=NAME_RINGS, optional=True):
+    placed = place_labels(unique, gap=h * 0.4, obstacles=obstacles, rings=NAME_RINGS, optional=True)
+    for p in placed:
         x0, y0, _, _ = p.box.bounds
         msp.add_text(clean_text(p.key), height=h, dxfattribs={"layer": fixed["annotation"], "style": style.text_style}
                      ).set_placement((x0, y0 + 0.35 * h))
         end = leader_end(p.box, p.anchor)
         if not p.inside and shapely.Point(p.anchor).distance(shapely.Point(end)) > h:
             msp.add_line(p.anchor, end, dxfattribs={"layer": fixed["annotation"]})
+    return [p.box for p in placed]
 
 
 def label_lines(result: "RunResult", d: Any) -> list[str]:
@@ -365,7 +373,7 @@ def label_lines(result: "RunResult", d: Any) -> list[str]:
 
 
 def _text_boxes(msp: Any) -> list[Polygon]:
-    """Boxes of the text and symbols already in model space (the owner's and ours): labels keep off them."""
+    """Boxes of the text and symbols in model space (measured by ezdxf, one by one: call it before we draw)."""
     out = []
     for e in msp.query("TEXT MTEXT CIRCLE"):
         b = bbox.extents([e], fast=True)
