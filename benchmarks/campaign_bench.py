@@ -21,7 +21,7 @@ from pathlib import Path
 import numpy as np
 
 from overlay.campaign import run_campaign
-from overlay.site import read_site
+from overlay.io.site import read_site
 
 FS, N = 25600.0, 1024
 
@@ -106,7 +106,7 @@ def main() -> None:
             for label, t in took.items():
                 print(f"  {args.scans} scans on 2 workers, {label}: {min(t):.1f} s (best of 2)")
         if args.exporters:
-            from overlay.outputs import write_outputs
+            from overlay.outputs.write import write_outputs
 
             t0 = time.perf_counter()
             c = run_campaign(site, jobs=2)

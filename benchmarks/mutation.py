@@ -34,19 +34,19 @@ EQUIVALENTS = ROOT / "benchmarks" / "mutation-equivalents.toml"
 
 # core module → the tests that exercise it (fast ones; mutmut picks the relevant ones per function)
 CORE: dict[str, list[str]] = {
-    "spectra": ["tests/test_spectra.py", "tests/test_energy_stage.py"],
-    "energy": ["tests/test_energy.py", "tests/test_energy_stage.py", "tests/test_field.py"],
-    "field": ["tests/test_field.py"],
-    "contour": ["tests/test_contour.py", "tests/test_zones.py"],
-    "zones": ["tests/test_zones.py", "tests/test_demo.py"],
-    "outline": ["tests/test_outline.py", "tests/test_plate_shapes.py", "tests/test_zones.py"],
-    "plate": ["tests/test_plate.py", "tests/test_plate_shapes.py", "tests/test_zones.py"],
-    "fits": ["tests/test_fits.py", "tests/test_frames.py"],
-    "transforms": ["tests/test_fits.py", "tests/test_frames.py"],
+    "signal/spectra": ["tests/test_spectra.py", "tests/test_energy_stage.py"],
+    "signal/energy": ["tests/test_energy.py", "tests/test_energy_stage.py", "tests/test_field.py"],
+    "signal/field": ["tests/test_field.py"],
+    "zones/contour": ["tests/test_contour.py", "tests/test_zones.py"],
+    "zones/zone": ["tests/test_zones.py", "tests/test_demo.py"],
+    "zones/outline": ["tests/test_outline.py", "tests/test_plate_shapes.py", "tests/test_zones.py"],
+    "zones/plate": ["tests/test_plate.py", "tests/test_plate_shapes.py", "tests/test_zones.py"],
+    "zones/mosaic": ["tests/test_campaign.py", "tests/test_demo.py"],
+    "geometry/fits": ["tests/test_fits.py", "tests/test_frames.py"],
+    "geometry/transforms": ["tests/test_fits.py", "tests/test_frames.py"],
     "quantities": ["tests/test_exporters.py", "tests/test_drawing.py", "tests/test_gis_clients.py"],
-    "merge": ["tests/test_merge.py"],
-    "mosaic": ["tests/test_campaign.py", "tests/test_demo.py"],
-    "agreement": ["tests/test_calibration.py"],
+    "assets/merge": ["tests/test_merge.py"],
+    "calibration/agreement": ["tests/test_calibration.py"],
 }
 NOT_RESULTS = [r"^\s*raise\b", r"warnings\.warn\(", r"^\s*(msg|hint|why|problem) = "]  # messages, not numbers
 STATUS = re.compile(r"^\s*(\S+): (.+)$")
@@ -170,6 +170,7 @@ def main() -> int:
         return 2
     rows = []
     for module in args.modules.split(","):
+        module = next((m for m in CORE if m == module or m.endswith("/" + module)), module)
         print(f"{module} …", file=sys.stderr, flush=True)
         rows.append(run_module(module, args.budget, args.jobs, mutmut))
         args.report.write_text(report(rows))

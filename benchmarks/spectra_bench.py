@@ -25,8 +25,8 @@ import numpy as np
 import scipy.fft
 import scipy.signal
 
-from overlay.gate import Gate
-from overlay.spectra import records_spectra
+from overlay.signal.gate import Gate
+from overlay.signal.spectra import records_spectra
 
 FS = 51200.0
 N_SAMPLES = 8192
@@ -91,8 +91,8 @@ def speed(path: Path, repeat: int = 7) -> dict[str, float]:
 
 PEAK_SCRIPT = """
 import sys, numpy as np
-from overlay.gate import Gate
-from overlay.spectra import records_spectra
+from overlay.signal.gate import Gate
+from overlay.signal.spectra import records_spectra
 rec = np.load(sys.argv[1], mmap_mode="r")
 sp = records_spectra(rec, Gate({g0}, {g1}, {fs}, "bench"), ({b0}, {b1}))
 print(int(np.isfinite(sp.energy).sum()))

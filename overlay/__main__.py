@@ -1,3 +1,3 @@
-from .cli.main import main
+from overlay.cli.main import main
 
 raise SystemExit(main())

@@ -19,14 +19,14 @@ from typing import Any
 import numpy as np
 import shapely
 
-from .energy import Reference
-from .fits import Fit
-from .gate import Gate
-from .pipeline import ScanResult
-from .registration import TargetResult
-from .staging import part_path
-from .transforms import Affine, Projective, Similarity
-from .zones import Zone
+from overlay.signal.energy import Reference
+from overlay.geometry.fits import Fit
+from overlay.signal.gate import Gate
+from overlay.scan import ScanResult
+from overlay.geometry.registration import TargetResult
+from overlay.outputs.staging import part_path
+from overlay.geometry.transforms import Affine, Projective, Similarity
+from overlay.zones.zone import Zone
 
 KINDS: dict[str, type] = {c.__name__: c for c in (ScanResult, Gate, Reference, Fit, Similarity, Affine, Projective,
                                                    TargetResult, Zone)}

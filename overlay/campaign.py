@@ -26,11 +26,11 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable, Iterable
 
-from . import __version__, cache
-from .errors import CacheWarning, OverlayError, UsageError
-from .pipeline import RunResult, ScanResult, finish_site, now_utc, scan_entry
-from .site import ScanEntry, Site
-from .staging import part_path, remove_stale_parts
+from overlay import __version__, cache
+from overlay.errors import CacheWarning, OverlayError, UsageError
+from overlay.scan import RunResult, ScanResult, finish_site, now_utc, scan_entry
+from overlay.io.site import ScanEntry, Site
+from overlay.outputs.staging import part_path, remove_stale_parts
 
 BUNDLE_FILES = ("scan.toml", "points.csv", "records.npy", "spectra.npy", "frequencies.npy")
 
@@ -154,7 +154,7 @@ def _save_index(cache_dir: Path | None, known: dict[str, list]) -> None:
 
 def _one_thread() -> None:
     """Workers share the cores already: one spectra thread each."""
-    from . import spectra
+    from overlay.signal import spectra
 
     spectra.DEFAULT_THREADS = 1
 
@@ -245,7 +245,7 @@ def run_campaign(
     t0 = time.perf_counter()
     started = now_utc()
     if site.elements is not None and site.elements.database is not None:
-        from .postgis import check_register
+        from overlay.assets.postgis import check_register
 
         check_register(site.elements)  # an unreachable register is found before the scans, not after
     out = CampaignResult(None)
@@ -310,7 +310,7 @@ def summary(c: CampaignResult) -> str:
     lines = [f"scans: {len(c.computed)} computed, {len(c.cached)} from the cache, {len(c.failures)} failed "
              f"({c.seconds:.1f} s)"]
     if c.result is not None:
-        from .quantities import defect_rows
+        from overlay.quantities import defect_rows
 
         rows = defect_rows(c.result.zones, c.result.site.classes, c.result.site.basis)
         lines.append(f"defects, each once at the highest class it reaches (affected area on the {c.result.site.basis}):")

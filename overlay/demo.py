@@ -5,7 +5,7 @@ The records are what a vibrometer would see under a swept tone burst:
 * before the sound arrives, instrument noise only;
 * sound concrete answers weakly and flatly (pressure over a point impedance);
 * concrete over a delamination answers as a thin clamped plate of the cover
-  thickness: a damped resonance at the plate frequency (overlay.plate), its
+  thickness: a damped resonance at the plate frequency (overlay.zones.plate), its
   amplitude following the plate's fundamental mode shape across the defect;
 * once the echo from the soffit reaches the head, the head itself is shaken
   and the record is spoiled (this is why the gate exists);
@@ -27,11 +27,11 @@ from typing import Any
 
 import numpy as np
 
-from .gate import speed_of_sound
-from .plate import aci318_modulus_pa, clamped_lambda, clamped_mode_shape, plate_frequency
-from .site import read_site
-from .tomlio import load_toml
-from .errors import SiteFileError
+from overlay.signal.gate import speed_of_sound
+from overlay.zones.plate import aci318_modulus_pa, clamped_lambda, clamped_mode_shape, plate_frequency
+from overlay.io.site import read_site
+from overlay.io.tomlio import load_toml
+from overlay.errors import SiteFileError
 
 SCENARIO_DIR = Path(__file__).resolve().parent.parent / "demo_site"
 
@@ -151,7 +151,7 @@ def write_sounding(dest: Path, sc: dict, truth: dict) -> None:
     import shapely
     from shapely.geometry import Polygon
 
-    from .frames import from_placement
+    from overlay.geometry.crs import from_placement
 
     cfg, st = sc["sounding"], sc["structure"]
     rng = np.random.default_rng(int(sc["seed"]) + 1)  # its own stream: the scans stay as they were
@@ -456,7 +456,7 @@ def write_assets(path: Path, st: dict) -> None:
     import geopandas as gpd
     from shapely.geometry import Polygon
 
-    from .frames import from_placement
+    from overlay.geometry.crs import from_placement
 
     to_map = from_placement(tuple(st["origin"]), st["bearing_deg"], 1.0, "m")
     rows, geoms = [], []

@@ -13,9 +13,9 @@ from dataclasses import dataclass
 from typing import TYPE_CHECKING, Sequence
 
 if TYPE_CHECKING:
-    from .pipeline import RunResult
-    from .site import ZoneClass
-    from .zones import Zone
+    from overlay.scan import RunResult
+    from overlay.io.site import ZoneClass
+    from overlay.zones.zone import Zone
 
 
 @dataclass(frozen=True)

@@ -10,7 +10,7 @@ import random
 import time
 
 from overlay.errors import OutputConflictError
-from overlay.merge import merge_findings
+from overlay.assets.merge import merge_findings
 
 
 def subset(result, scans: set[str]):

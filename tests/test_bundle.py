@@ -8,7 +8,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from overlay.bundle import read_bundle
+from overlay.io.bundle import read_bundle
 from overlay.errors import BundleError, BundleWarning
 
 from .conftest import write_bundle

@@ -21,7 +21,7 @@ import numpy as np
 import pytest
 import shapely
 
-from overlay.agreement import Counts, area_agreement, auc, best_youden, cohen_kappa, counts_at, roc, sweep, wilson
+from overlay.calibration.agreement import Counts, area_agreement, auc, best_youden, cohen_kappa, counts_at, roc, sweep, wilson
 from overlay.cli.main import main
 
 from .test_gis_clients import needs_validator, validate
@@ -174,7 +174,7 @@ def test_a_sounding_drawing_needs_its_layer_and_closed_outlines(demo_cal: dict, 
 def test_a_sounding_drawing_is_read_in_the_drawing_frame(demo: dict, tmp_path: Path) -> None:
     import ezdxf
 
-    from overlay.sounding import read_sounding
+    from overlay.calibration.sounding import read_sounding
 
     doc = ezdxf.new("R2013")
     doc.header["$INSUNITS"] = 6

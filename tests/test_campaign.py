@@ -12,7 +12,7 @@ from shapely.geometry import Point
 
 from overlay.campaign import run_campaign
 from overlay.cli.main import main
-from overlay.site import read_site
+from overlay.io.site import read_site
 
 
 @pytest.fixture

@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from overlay.contour import level_polygons
-from overlay.grid import fill_isolated, grid_from_indices, infer_grid
+from overlay.zones.contour import level_polygons
+from overlay.zones.grid import fill_isolated, grid_from_indices, infer_grid
 
 
 def _grid(n: int = 81, spacing: float = 0.05):

@@ -96,8 +96,8 @@ def test_incidence_correction_flattens_the_healthy_scan(demo: dict) -> None:
     # 10·log10(cos²θ) lower: −0.77 dB at 23.7° (hand-worked)
     import dataclasses
 
-    from overlay.bundle import read_bundle
-    from overlay.pipeline import process_scan
+    from overlay.io.bundle import read_bundle
+    from overlay.scan import process_scan
 
     site = demo["result"].site
     entry = next(e for e in site.scans if e.bundle.name == "S-104")
@@ -174,7 +174,7 @@ def test_zones_land_within_a_quarter_spacing_and_the_angle_scan_is_projective(de
 def test_fit_reports_are_in_the_run_outputs(demo: dict, tmp_path) -> None:
     import pyogrio
 
-    from overlay.outputs import write_outputs
+    from overlay.outputs.write import write_outputs
 
     paths = write_outputs(demo["result"], tmp_path, pictures=False).paths
     report = paths["report"].read_text()

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from overlay.energy import reference_energy, ver_db
+from overlay.signal.energy import reference_energy, ver_db
 from overlay.errors import SignalError
 
 

@@ -16,7 +16,7 @@ from shapely.geometry import Polygon
 
 from overlay.cautions import CAUTIONS
 from overlay.exporters.dxf import APPID, TAG_BLOCK, clean_text, layer_names
-from overlay.outputs import write_outputs
+from overlay.outputs.write import write_outputs
 
 
 @pytest.fixture(scope="module")

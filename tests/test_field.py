@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from overlay.field import fit_field
+from overlay.signal.field import fit_field
 
 
 @pytest.mark.parametrize("kind", ["plane", "quadratic"])

@@ -8,9 +8,9 @@ import numpy as np
 import pytest
 
 from overlay.errors import CRSCheckError, RegistrationError, RegistrationWarning
-from overlay.fits import check_fit, fit_points
-from overlay.frames import check_map_crs, from_placement, to_crs, transform_xy
-from overlay.transforms import Similarity
+from overlay.geometry.fits import check_fit, fit_points
+from overlay.geometry.crs import check_map_crs, from_placement, to_crs, transform_xy
+from overlay.geometry.transforms import Similarity
 
 # EPSG Guidance Note 7-2, method 9621 (2D similarity), example ED50 / UTM 31N → ETRS89 / UTM 31N:
 # XT = XT0 + M(XS·cosθ + YS·sinθ), YT = YT0 + M(−XS·sinθ + YS·cosθ)
@@ -151,7 +151,7 @@ def test_gn72_lambert_conic_2sp_through_our_crs_path() -> None:
 
 def test_utm_scale_factor_at_the_central_meridian() -> None:
     # UTM: k0 = 0.9996 on the central meridian (definition of the projection; zone 32 → 9°E)
-    from overlay.frames import site_scale_factor
+    from overlay.geometry.crs import site_scale_factor
 
     xy = transform_xy(np.array([[9.0, 51.0]]), "EPSG:4258", "EPSG:25832")
     k, areal = site_scale_factor(to_crs(25832), xy)
@@ -159,7 +159,7 @@ def test_utm_scale_factor_at_the_central_meridian() -> None:
 
 
 def test_transformations_are_exact_reported_or_refused() -> None:
-    from overlay.frames import crs_transformer
+    from overlay.geometry.crs import crs_transformer
 
     t, acc = crs_transformer("EPSG:25832", "EPSG:25833", (12.0, 51.0))
     assert acc == 0.0  # same datum: a conversion, exact
@@ -174,14 +174,14 @@ def test_millimetre_drawings_round_trip_exactly() -> None:
     p_mm = from_placement((500000.0, 5700000.0), 63.5, 1.0, "mm").apply(np.array([12345.0, 6789.0]))
     p_m = from_placement((500000.0, 5700000.0), 63.5, 1.0, "m").apply(np.array([12.345, 6.789]))
     np.testing.assert_allclose(p_mm, p_m, rtol=0, atol=1e-9)
-    from overlay.frames import UNIT_TO_M
+    from overlay.geometry.crs import UNIT_TO_M
 
     x = np.array([0.001, 1.0, 123456.789])
     assert np.array_equal((x / UNIT_TO_M["mm"]) * UNIT_TO_M["mm"], x)
 
 
 def test_station_offset_straight_and_arc() -> None:
-    from overlay.stations import Alignment
+    from overlay.geometry.stations import Alignment
 
     # straight line (0,0)→(100,0), start station 1000: (30, 5) is at station 1030, 5 m left (hand-worked)
     line = Alignment.from_points([(0.0, 0.0), (100.0, 0.0)], 1000.0)

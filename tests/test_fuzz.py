@@ -20,7 +20,7 @@ from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
 from overlay.cli.main import main
-from overlay.tomlio import tomllib
+from overlay.io.tomlio import tomllib
 
 from .conftest import write_bundle, write_site
 

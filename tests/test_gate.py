@@ -5,7 +5,7 @@ from __future__ import annotations
 import pytest
 
 from overlay.errors import SignalError
-from overlay.gate import make_gate, speed_of_sound, window_from_geometry
+from overlay.signal.gate import make_gate, speed_of_sound, window_from_geometry
 
 
 def test_speed_of_sound_formula() -> None:

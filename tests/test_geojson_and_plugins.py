@@ -15,7 +15,7 @@ from shapely.geometry import LinearRing
 from overlay.cautions import CAUTIONS
 from overlay.exporters import GROUP, load_exporters
 from overlay.exporters.geojson import GeoJsonExporter
-from overlay.frames import transform_xy
+from overlay.geometry.crs import transform_xy
 
 EXAMPLE = Path(__file__).resolve().parents[1] / "docs" / "examples" / "overlay-zone-table"
 

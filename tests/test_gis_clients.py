@@ -26,9 +26,9 @@ import pyogrio
 import pytest
 import shapely
 
-from overlay import palette
-from overlay.merge import merge_findings
-from overlay.outputs import write_outputs
+from overlay.outputs import palette
+from overlay.assets.merge import merge_findings
+from overlay.outputs.write import write_outputs
 from overlay.quantities import defects
 
 SYSTEM_PYTHON = "/usr/bin/python3"
@@ -104,8 +104,8 @@ def owner_file(folder: Path, version: str) -> Path:
     folder.mkdir(parents=True, exist_ok=True)
     path = folder / "assets.gpkg"
     from overlay.demo import deck_panels, scenario_folder
-    from overlay.frames import from_placement
-    from overlay.tomlio import tomllib
+    from overlay.geometry.crs import from_placement
+    from overlay.io.tomlio import tomllib
 
     st = tomllib.loads((scenario_folder() / "scenario.toml").read_text())["structure"]
     to_map = from_placement(tuple(st["origin"]), st["bearing_deg"], 1.0, "m")

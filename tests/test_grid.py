@@ -10,7 +10,7 @@ import pytest
 import shapely
 
 from overlay.errors import BundleError
-from overlay.grid import grid_from_indices
+from overlay.zones.grid import grid_from_indices
 
 
 def _grid(n_rows: int = 12, n_cols: int = 15, spacing: float = 0.05, bend: float = 0.0, drop=()):

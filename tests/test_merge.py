@@ -26,10 +26,10 @@ import pytest
 import shapely
 import shapely.affinity
 
-import overlay.gpkg_sql as gpkg_sql
-from overlay.elements import ElementLayer, split_by_assets
+import overlay.assets.gpkg_sql as gpkg_sql
+from overlay.assets.elements import ElementLayer, split_by_assets
 from overlay.errors import OutputConflictError, RegistrationError, SiteFileError
-from overlay.merge import backups_of, findings_rows, merge_findings, prepare_merge
+from overlay.assets.merge import backups_of, findings_rows, merge_findings, prepare_merge
 
 from .merging import merge_child, race, subset
 

@@ -23,10 +23,10 @@ import pytest
 import shapely
 
 from overlay.cli.main import main
-from overlay.elements import read_asset_table
+from overlay.assets.elements import read_asset_table
 from overlay.errors import OutputConflictError, SiteFileError
-from overlay.merge import merge_findings
-from overlay.site import read_site
+from overlay.assets.merge import merge_findings
+from overlay.io.site import read_site
 
 from .merging import race, subset
 from .postgres_server import start
@@ -213,7 +213,7 @@ def test_a_new_table_of_a_failed_merge_is_gone_again(owner_db, monkeypatch) -> N
     # transactional DDL: the CREATE TABLE is rolled back with the rest
     import psycopg
 
-    import overlay.merge_postgis as mp
+    import overlay.assets.merge_postgis as mp
 
     conninfo, result = owner_db
 
@@ -266,7 +266,7 @@ def test_an_existing_table_of_the_wrong_shape_is_refused_naming_the_column(owner
 def test_a_second_session_holding_the_lock_is_named_and_refused(owner_db) -> None:
     import psycopg
 
-    from overlay.postgis import lock_key
+    from overlay.assets.postgis import lock_key
 
     conninfo, result = owner_db
     with psycopg.connect(conninfo, application_name="a GIS edit session") as other:

@@ -15,8 +15,8 @@ import pytest
 import shapely
 import shapely.affinity
 
-from overlay.outline import MISFIT_MAX, Plate, beam_mode, fit_plate
-from overlay.plate import clamped_mode_shape
+from overlay.zones.outline import MISFIT_MAX, Plate, beam_mode, fit_plate
+from overlay.zones.plate import clamped_mode_shape
 
 from .independent_cases import Defect, _shape_field
 
@@ -59,12 +59,12 @@ def _map(defect: Defect, spacing: float, noise_db: float, seed: int = 1) -> tupl
 
 def _fit(defect: Defect, spacing: float = 0.025, noise_db: float = 0.4):
     xy, ver = _map(defect, spacing, noise_db)
-    from overlay.contour import level_polygons
-    from overlay.grid import infer_grid
+    from overlay.zones.contour import level_polygons
+    from overlay.zones.grid import infer_grid
 
     grid = infer_grid(xy)
     contour = level_polygons(grid, grid.values(ver, np.ones(len(ver), bool)), 6.0)[0]
-    from overlay.zones import defect_outline
+    from overlay.zones.zone import defect_outline
 
     _, scale = defect_outline(contour, float(ver.max()), 6.0)
     return fit_plate(contour, xy, ver, np.ones(len(ver), bool), scale, float(ver.max())), contour

@@ -18,9 +18,9 @@ import matplotlib.text
 import numpy as np
 import pytest
 
-from overlay import pictures
+from overlay.outputs import pictures
 from overlay.cautions import CAUTIONS
-from overlay.outputs import write_outputs
+from overlay.outputs.write import write_outputs
 
 VOID = {"meta", "img", "br", "hr", "link", "input"}
 
@@ -79,7 +79,7 @@ def test_picture_ids_and_numbers_match_the_zone_table(written: dict, monkeypatch
     # one source of truth: every zone id a picture shows (in its texts or its file name) is a row of the
     # quantities CSV, and a defect sheet's areas, peak and confidence read the same as those rows — in
     # the full pictures of a site and the compact ones of a campaign
-    from overlay import outputs
+    from overlay.outputs import write as outputs
 
     rows = list(csv.DictReader(written["paths"]["quantities-csv"].open()))
     zones = {r["zone_id"]: r for r in rows if r["row_kind"] == "zone"}
@@ -256,7 +256,7 @@ def test_no_pictures_writes_none(demo: dict, tmp_path: Path) -> None:
 
 
 def test_pdf_report_where_chromium_is_installed(demo: dict, tmp_path: Path, written: dict) -> None:
-    from overlay.outputs import find_pdf_printer
+    from overlay.outputs.write import find_pdf_printer
 
     if find_pdf_printer() is None:
         pytest.skip("Chromium not installed")
@@ -268,7 +268,7 @@ def test_pdf_report_where_chromium_is_installed(demo: dict, tmp_path: Path, writ
 
 def test_pictures_on_two_processes_equal_those_on_one(demo: dict) -> None:
     # the same PNG bytes whichever process draws them, in the same order; progress once per picture
-    from overlay.outputs import draw_pictures, picture_names
+    from overlay.outputs.write import draw_pictures, picture_names
 
     seen: list[int] = []
     one = draw_pictures(demo["result"], None, jobs=1)
@@ -309,7 +309,7 @@ def test_text_report_defect_rows_read_as_the_csv(written: dict) -> None:
 @pytest.fixture(scope="module")
 def folder_report(demo: dict, tmp_path_factory: pytest.TempPathFactory) -> dict:
     # a campaign-sized report without a campaign's run time: the page limit lowered below the demo's scans
-    from overlay import report_html
+    from overlay.outputs import report_html
 
     out = tmp_path_factory.mktemp("folder")
     limit = report_html.PAGE_LIMIT_SCANS

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import pytest
 
-from overlay.plate import (
+from overlay.zones.plate import (
     aci318_modulus_pa,
     clamped_lambda,
     clamped_mode_shape,

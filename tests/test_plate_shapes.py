@@ -15,7 +15,7 @@ import pytest
 import shapely
 import shapely.affinity
 
-from overlay.outline import clamped_lambda2_eq, simply_supported_lambda2_eq
+from overlay.zones.outline import clamped_lambda2_eq, simply_supported_lambda2_eq
 
 from .independent_cases import fd_lambda2
 

@@ -80,10 +80,10 @@ def test_an_output_that_is_the_owners_file_is_refused(tmp_path: Path, capsys: py
 
 
 def test_a_refused_merge_writes_no_output(tmp_path: Path, capsys: pytest.CaptureFixture, monkeypatch) -> None:
-    import overlay.merge
+    import overlay.assets.merge
 
     site, assets = owner_site(tmp_path)
-    monkeypatch.setattr(overlay.merge, "WAIT_S", 0.2)
+    monkeypatch.setattr(overlay.assets.merge, "WAIT_S", 0.2)
     before = assets.read_bytes()
     for lock in ("IMMEDIATE", "EXCLUSIVE"):  # a GIS edit session; one that even keeps readers out
         holder = sqlite3.connect(assets, isolation_level=None)
@@ -103,7 +103,7 @@ def test_a_refused_merge_writes_no_output(tmp_path: Path, capsys: pytest.Capture
 
 def test_outputs_that_cannot_move_into_place_roll_the_merge_back(tmp_path: Path, capsys: pytest.CaptureFixture,
                                                                   monkeypatch) -> None:
-    import overlay.staging
+    import overlay.outputs.staging
 
     site, assets = owner_site(tmp_path)
     out = tmp_path / "out"
@@ -120,7 +120,7 @@ def test_outputs_that_cannot_move_into_place_roll_the_merge_back(tmp_path: Path,
                 raise OSError(28, "No space left on device")
         return real(src, dst)
 
-    monkeypatch.setattr(overlay.staging.os, "replace", flaky)
+    monkeypatch.setattr(overlay.outputs.staging.os, "replace", flaky)
     assert run(site, out, "--overwrite", "--no-cache") == 5
     assert "No space left" in err_line(capsys)
     monkeypatch.undo()

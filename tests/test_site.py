@@ -7,7 +7,7 @@ from pathlib import Path
 import pytest
 
 from overlay.errors import SiteFileError
-from overlay.site import read_site
+from overlay.io.site import read_site
 
 from .conftest import write_bundle, write_site
 

@@ -9,8 +9,8 @@ import scipy.signal
 from hypothesis import assume, given, settings
 from hypothesis import strategies as st
 
-from overlay.gate import Gate
-from overlay.spectra import (
+from overlay.signal.gate import Gate
+from overlay.signal.spectra import (
     given_spectra,
     hann,
     parabolic_peak,
@@ -270,7 +270,7 @@ def test_a_band_narrower_than_three_bins_is_refused() -> None:
 @pytest.mark.parametrize("width", [1, 2, 3, 4, 7, 8, 64, 65])
 def test_noise_floor_median_equals_numpy_median_for_odd_and_even_widths(width: int) -> None:
     # the SNR's noise floor uses a partition-based median; numpy.median is the reference, ties included
-    from overlay.spectra import _median
+    from overlay.signal.spectra import _median
 
     rng = np.random.default_rng(width)
     p = rng.exponential(1.0, (5, width))

@@ -13,7 +13,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from overlay.outline import MISFIT_MAX
+from overlay.zones.outline import MISFIT_MAX
 
 from .independent_cases import Case, Defect, cases, run_case
 

@@ -12,10 +12,10 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from shapely.geometry import Polygon, box
 
-from overlay.contour import level_polygons
-from overlay.grid import ScatterGrid, grid_from_indices
-from overlay.plate import clamped_lambda, clamped_mode_shape, plate_frequency
-from overlay.zones import (
+from overlay.zones.contour import level_polygons
+from overlay.zones.grid import ScatterGrid, grid_from_indices
+from overlay.zones.plate import clamped_lambda, clamped_mode_shape, plate_frequency
+from overlay.zones.zone import (
     Concrete,
     confidence_factors,
     contour_fraction,

@@ -35,13 +35,13 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 
 def execute(args: argparse.Namespace) -> int:
-    from ..calibration import calibrate
-    from ..calibration_report import output_names, write_all
-    from ..campaign import run_campaign
-    from ..outputs import check_not_inputs, check_out_dir, check_targets, run_inputs
-    from ..site import read_site
-    from ..sounding import read_sounding
-    from ..staging import Staged
+    from overlay.calibration.calibrate import calibrate
+    from overlay.calibration.report import output_names, write_all
+    from overlay.campaign import run_campaign
+    from overlay.outputs.write import check_not_inputs, check_out_dir, check_targets, run_inputs
+    from overlay.io.site import read_site
+    from overlay.calibration.sounding import read_sounding
+    from overlay.outputs.staging import Staged
 
     site = read_site(args.site)
     if args.accept_misfit:
@@ -54,7 +54,7 @@ def execute(args: argparse.Namespace) -> int:
     covered = {e.strip() for e in args.elements.split(",") if e.strip()} if args.elements else None
     unknown = sorted((covered or set()) - {s.element for s in result.scans})
     if unknown:
-        from ..errors import UsageError
+        from overlay.errors import UsageError
 
         raise UsageError(f"--elements names {', '.join(unknown)}, which no scan of the site has "
                          f"(scanned: {', '.join(sorted({s.element for s in result.scans if s.element}))})")

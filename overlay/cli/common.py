@@ -8,7 +8,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING
 
 if TYPE_CHECKING:  # the library is imported when a command runs, not to parse its arguments
-    from ..site import Site
+    from overlay.io.site import Site
 
 
 def add_output_options(p: argparse.ArgumentParser, default_out: str, *, overwrite_option: bool = True) -> None:
@@ -40,9 +40,9 @@ def run_and_write(site: Site, out: Path, args: argparse.Namespace, *, overwrite:
     """Process the site (in parallel, cached), write outputs, print the report and the summary; exit code."""
     from tqdm import tqdm
 
-    from ..campaign import run_campaign, summary
-    from ..outputs import check_out_dir, picture_names, write_outputs
-    from ..report import run_report
+    from overlay.campaign import run_campaign, summary
+    from overlay.outputs.write import check_out_dir, picture_names, write_outputs
+    from overlay.outputs.report_text import run_report
 
     hide = True if args.quiet else None  # None: tqdm shows bars on a terminal only
     scans = tqdm(total=len(site.scans), desc="scans ", unit="scan", disable=hide, file=sys.stderr, position=0)

@@ -6,7 +6,7 @@ import argparse
 import dataclasses
 from pathlib import Path
 
-from .common import add_output_options, run_and_write
+from overlay.cli.common import add_output_options, run_and_write
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
@@ -18,8 +18,8 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 
 def execute(args: argparse.Namespace) -> int:
-    from ..demo import generate
-    from ..site import read_site
+    from overlay.demo import generate
+    from overlay.io.site import read_site
 
     out: Path = args.out
     site_path = generate(out / "site")

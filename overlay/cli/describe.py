@@ -8,7 +8,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING
 
 if TYPE_CHECKING:  # the command's own imports wait until it runs: `overlay --help` starts at once
-    from ..bundle import Scan
+    from overlay.io.bundle import Scan
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
@@ -21,7 +21,7 @@ def summary(scan: Scan) -> str:
     """The bundle in a dozen lines."""
     import numpy as np
 
-    from ..pipeline import choose_gate, scan_grid
+    from overlay.scan import choose_gate, scan_grid
     unit = "m" if scan.kind == "surface" else "deg"
     lo, hi = scan.xy.min(axis=0), scan.xy.max(axis=0)
     lines = [
@@ -60,7 +60,7 @@ def summary(scan: Scan) -> str:
 
 
 def execute(args: argparse.Namespace) -> int:
-    from ..bundle import read_bundle
+    from overlay.io.bundle import read_bundle
 
     print(summary(read_bundle(args.bundle)))
     return 0

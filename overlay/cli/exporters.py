@@ -12,7 +12,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 
 def execute(args: argparse.Namespace) -> int:
-    from ..exporters import load_exporters
+    from overlay.exporters import load_exporters
 
     usable, broken = load_exporters()
     for name, e in sorted(usable.items()):

@@ -6,8 +6,8 @@ import argparse
 
 from pathlib import Path
 
-from ..errors import SiteFileError, UsageError
-from ..tomlio import tomllib
+from overlay.errors import SiteFileError, UsageError
+from overlay.io.tomlio import tomllib
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
@@ -52,8 +52,8 @@ def _columns(args: argparse.Namespace) -> dict[str, str]:
 
 
 def execute(args: argparse.Namespace) -> int:
-    from ..bundle import read_bundle
-    from ..importers import load_importers, write_bundle
+    from overlay.io.bundle import read_bundle
+    from overlay.importers import load_importers, write_bundle
 
     usable, broken = load_importers()
     if args.list:

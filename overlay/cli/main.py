@@ -14,9 +14,9 @@ import traceback
 import warnings
 from typing import Sequence
 
-from .. import __version__
-from ..errors import EXIT_UNEXPECTED, EXIT_USAGE, OverlayError, OverlayWarning
-from . import calibrate, demo, describe, exporters, importing, run
+from overlay import __version__
+from overlay.errors import EXIT_UNEXPECTED, EXIT_USAGE, OverlayError, OverlayWarning
+from overlay.cli import calibrate, demo, describe, exporters, importing, run
 
 COMMANDS = (run, calibrate, demo, describe, importing, exporters)
 

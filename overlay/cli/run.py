@@ -6,7 +6,7 @@ import argparse
 import dataclasses
 from pathlib import Path
 
-from .common import add_output_options, run_and_write
+from overlay.cli.common import add_output_options, run_and_write
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
@@ -19,7 +19,7 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 
 def execute(args: argparse.Namespace) -> int:
-    from ..site import read_site
+    from overlay.io.site import read_site
 
     site = read_site(args.site)
     if args.accept_misfit:

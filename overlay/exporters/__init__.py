@@ -13,10 +13,10 @@ from importlib.metadata import EntryPoint
 from pathlib import Path
 from typing import TYPE_CHECKING, Collection, Iterable, Protocol, runtime_checkable
 
-from ..plugins import Broken, load_group
+from overlay.plugins import Broken, load_group
 
 if TYPE_CHECKING:
-    from ..pipeline import RunResult
+    from overlay.scan import RunResult
 
 __all__ = ["GROUP", "Broken", "Exporter", "check_exporter", "load_exporters"]
 

@@ -12,7 +12,7 @@ targets have layers of their own, told apart by linetype and lineweight as well
 as colour, so a black-and-white print keeps them apart.  Every text is sized for
 the plot scale (2.5 mm labels, 1.8 mm notes on paper); the legend and the note sit
 below everything drawn; the drawing opens zoomed to its extents, and a paper-space
-sheet (overlay.sheet) is ready to plot.  Every layer and layout we create and every
+sheet (overlay.outputs.sheet) is ready to plot.  Every layer and layout we create and every
 entity we draw is marked as ours, so a rerun onto its own output replaces exactly
 our content and nothing else.
 """
@@ -32,17 +32,17 @@ from ezdxf.document import Drawing
 from ezdxf.fonts import fonts
 from shapely.geometry import LineString, Polygon
 
-from .. import palette, sheet
-from ..cautions import CAUTIONS
-from ..errors import OutputConflictError, SiteFileError
-from ..frames import UNIT_TO_M
-from ..labels import Item, leader_end, place_labels
-from ..quantities import defects
+from overlay.outputs import palette, sheet
+from overlay.cautions import CAUTIONS
+from overlay.errors import OutputConflictError, SiteFileError
+from overlay.geometry.crs import UNIT_TO_M
+from overlay.outputs.labels import Item, leader_end, place_labels
+from overlay.quantities import defects
 
 if TYPE_CHECKING:
-    from ..pipeline import RunResult
-    from ..site import DxfStyle
-    from ..zones import Zone
+    from overlay.scan import RunResult
+    from overlay.io.site import DxfStyle
+    from overlay.zones.zone import Zone
 
 APPID = "OVERLAY_ZONES"
 OURS = "owner=overlay"
@@ -384,7 +384,7 @@ def _text_boxes(msp: Any) -> list[Polygon]:
 
 def _labels(msp: Any, result: "RunResult", move: Any, style: "DxfStyle", text: Lettering,
             obstacles: list[Polygon]) -> list[Any]:
-    """One label per defect, placed by overlay.labels, in its highest class's colour (that class's text layer)."""
+    """One label per defect, placed by overlay.outputs.labels, in its highest class's colour (that class's text layer)."""
     found = defects(result.zones, result.site.classes)
     font = fonts.make_font(style.font, text.label)
     items, lines = [], {}

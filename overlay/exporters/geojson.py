@@ -18,12 +18,12 @@ import numpy as np
 from shapely.geometry import mapping
 from shapely.geometry.polygon import orient
 
-from ..cautions import CAUTIONS
-from ..errors import SiteFileError
-from ..frames import reproject
+from overlay.cautions import CAUTIONS
+from overlay.errors import SiteFileError
+from overlay.geometry.crs import reproject
 
 if TYPE_CHECKING:
-    from ..pipeline import RunResult
+    from overlay.scan import RunResult
 
 DECIMALS = 8  # about a millimetre in longitude and latitude
 

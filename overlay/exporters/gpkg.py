@@ -22,12 +22,13 @@ import numpy as np
 import shapely
 from shapely.geometry import MultiPolygon, Point
 
-from .. import gpkg_sql, palette, styles
-from ..cautions import CAUTIONS
-from ..zones import ZONE_FIELDS
+from overlay.assets import gpkg_sql
+from overlay.outputs import palette, styles
+from overlay.cautions import CAUTIONS
+from overlay.zones.zone import ZONE_FIELDS
 
 if TYPE_CHECKING:
-    from ..pipeline import RunResult
+    from overlay.scan import RunResult
 
 GPKG_VERSION = "1.3"  # read without a warning by GDAL 3.6 / QGIS 3.22 (Debian 12) and every later release
 STYLE_NAME = "overlay default"
@@ -299,7 +300,7 @@ RUN_KINDS = {"run_started": "M", "tool_version": "t", "site": "t", "structure": 
 
 def _runs(result: "RunResult") -> Layer:
     """The non-spatial runs table: one row per scan with the run's settings, fit, reference and calibration."""
-    from ..report import recorded_calibration
+    from overlay.outputs.report_text import recorded_calibration
 
     cal = recorded_calibration(result) or {}
     rows = []

@@ -13,10 +13,10 @@ import csv
 from pathlib import Path
 from typing import TYPE_CHECKING
 
-from ..quantities import COLUMNS, class_columns, quantity_rows
+from overlay.quantities import COLUMNS, class_columns, quantity_rows
 
 if TYPE_CHECKING:
-    from ..pipeline import RunResult
+    from overlay.scan import RunResult
 
 
 class QuantitiesCsvExporter:

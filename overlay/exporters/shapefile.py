@@ -23,11 +23,11 @@ import numpy as np
 import pandas as pd
 import pyogrio
 
-from ..cautions import CAUTIONS
-from .gpkg import FIELD_DOCS, layers, to_output_frame
+from overlay.cautions import CAUTIONS
+from overlay.exporters.gpkg import FIELD_DOCS, layers, to_output_frame
 
 if TYPE_CHECKING:
-    from ..pipeline import RunResult
+    from overlay.scan import RunResult
 
 MAX_NAME = 10
 MAX_TEXT = 254

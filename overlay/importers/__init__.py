@@ -19,8 +19,8 @@ from typing import Any, Iterable, Protocol, runtime_checkable
 
 import numpy as np
 
-from ..errors import OutputConflictError
-from ..plugins import Broken, load_group
+from overlay.errors import OutputConflictError
+from overlay.plugins import Broken, load_group
 
 GROUP = "overlay.importers"
 

@@ -14,9 +14,9 @@ from typing import Any
 
 import numpy as np
 
-from ..energy import DEFAULT_PERCENTILE, reference_energy, ver_db
-from ..errors import BundleError
-from . import Imported
+from overlay.signal.energy import DEFAULT_PERCENTILE, reference_energy, ver_db
+from overlay.errors import BundleError
+from overlay.importers import Imported
 
 LENGTH = {"m": 1.0, "mm": 1e-3}
 

@@ -15,9 +15,9 @@ from typing import Any
 
 import numpy as np
 
-from ..errors import BundleError
-from ..grid import infer_grid
-from . import Imported
+from overlay.errors import BundleError
+from overlay.zones.grid import infer_grid
+from overlay.importers import Imported
 
 TIME, PSD = 1, 9
 VELOCITY = {"m/s": 1.0, "mm/s": 1e-3}

@@ -1,0 +1,1 @@
+"""Agreement with hammer sounding: the sounding input, the statistics, suggested levels, the report."""

@@ -1,0 +1,1 @@
+"""Reading what a run is given: scan bundles, the site file, TOML with file/field errors."""

@@ -1,0 +1,486 @@
+"""Reader for scan bundles, format ``scan-bundle/1`` (see docs/scan-bundle.md).
+
+The reader validates everything the format asks for and stops at the first
+problem with one line naming the file, the line or field, and what is wrong.
+Velocity records and spectra are memory-mapped, never loaded whole.
+"""
+
+from __future__ import annotations
+
+import csv
+import datetime as dt
+import difflib
+import re
+import stat
+import warnings
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from overlay.errors import BundleError, BundleWarning
+from overlay.io.tomlio import Fields, load_toml
+
+FORMAT = "scan-bundle/1"
+SCAN_ID = re.compile(r"^[A-Za-z0-9._-]+$")
+VELOCITY_TO_MPS = {"m/s": 1.0, "mm/s": 1e-3}
+LENGTH_TO_M = {"m": 1.0, "mm": 1e-3}
+KNOWN_COLUMNS = {"id", "row", "col", "x", "y", "ax", "ay", "valid", "signal_level", "ver_db", "peak_hz"}
+MAX_POINTS_BYTES = 256 << 20  # points.csv of 256 MiB holds ~4 million points; anything larger is not one scan
+MAX_SAMPLES = 1 << 24  # samples per record (5.5 minutes at 51.2 kHz)
+MAX_SHOTS = 1024
+MAX_SURFACE_M = 1.0e6  # |x|, |y| of surface coordinates and targets, metres
+MAX_ANGLE_DEG = 89.0  # |ax|, |ay| of mirror angles: a beam at 90 degrees never meets the surface
+CELLS_PER_POINT = 64  # row/col may span at most this many grid cells per point (else it is not a grid)
+SURVEYED_YEARS = (1950, 2200)
+
+
+@dataclass(frozen=True)
+class Target:
+    """A control target as the scanner saw it, with its drawing position if known."""
+
+    name: str
+    scanner: tuple[float, float]
+    drawing: tuple[float, float] | None = None
+
+
+@dataclass(frozen=True)
+class Geometry:
+    """Where source and head stood; drives the automatic gate and angle scans."""
+
+    source_distance_m: float | None = None
+    head_distance_m: float | None = None
+    air_temperature_c: float = 20.0
+
+
+@dataclass
+class Scan:
+    """One scan as read from its bundle: coordinates, payload and metadata.
+
+    ``xy`` holds surface coordinates in metres (kind "surface") or mirror
+    angles in degrees (kind "angles").  ``payload`` says which of
+    ``records``, ``spectra`` or ``ver_db`` carries the signal.
+    """
+
+    path: Path
+    scan_id: str
+    kind: str
+    point_ids: np.ndarray
+    xy: np.ndarray
+    valid: np.ndarray
+    payload: str
+    unit_scale: float = 1.0  # bundle coordinate unit → m (surface scans)
+    element: str | None = None
+    surveyed: dt.datetime | None = None
+    note: str = ""
+    row: np.ndarray | None = None
+    col: np.ndarray | None = None
+    signal_level: np.ndarray | None = None
+    ver_db: np.ndarray | None = None
+    peak_hz: np.ndarray | None = None
+    records: np.ndarray | None = None
+    sample_rate_hz: float | None = None
+    velocity_scale: float = 1.0
+    trigger_s: float = 0.0
+    gate_s: tuple[float, float] | None = None
+    spectra: np.ndarray | None = None
+    frequencies: np.ndarray | None = None
+    band_hz: tuple[float, float] | None = None
+    geometry: Geometry = field(default_factory=Geometry)
+    targets: list[Target] = field(default_factory=list)
+
+    @property
+    def n_points(self) -> int:
+        return len(self.point_ids)
+
+    @property
+    def has_grid(self) -> bool:
+        return self.row is not None
+
+    @property
+    def n_samples(self) -> int | None:
+        return None if self.records is None else int(self.records.shape[-1])
+
+    @property
+    def n_shots(self) -> int:
+        return 1 if self.records is None or self.records.ndim == 2 else int(self.records.shape[1])
+
+
+def read_bundle(folder: str | Path) -> Scan:
+    """Read and validate one scan bundle folder; raise ``BundleError`` on the first problem."""
+    folder = Path(folder)
+    if not folder.is_dir():
+        raise BundleError("scan bundle folder not found", source=folder)
+    manifest_path = folder / "scan.toml"
+    doc = Fields(load_toml(manifest_path, BundleError), "", manifest_path, BundleError)
+
+    fmt = doc.string("format", required=True)
+    if fmt != FORMAT:
+        raise doc.fail("format", f"unsupported format {fmt!r}; this reader knows {FORMAT!r}")
+
+    scan_t = doc.table_of("scan")
+    if scan_t is None:
+        raise doc.fail("scan", "table is required")
+    scan_id = scan_t.string("id", required=True)
+    assert scan_id is not None
+    if not SCAN_ID.match(scan_id):
+        raise scan_t.fail("id", f"must match [A-Za-z0-9._-]+, got {scan_id!r}")
+    element = scan_t.string("element")
+    surveyed = _surveyed(scan_t)
+    note = scan_t.string("note", "") or ""
+
+    coords = doc.table_of("coordinates")
+    if coords is None:
+        raise doc.fail("coordinates", "table is required")
+    kind = coords.choice("kind", ("surface", "angles"))
+    unit_scale = 1.0
+    if kind == "surface":
+        unit_scale = LENGTH_TO_M[coords.choice("unit", tuple(LENGTH_TO_M), default="m")]
+    elif coords.has("unit"):
+        raise coords.fail("unit", 'applies to kind "surface" only; angles are always degrees')
+
+    points_path = folder / "points.csv"
+    table = _read_points(points_path, kind, unit_scale)
+    n = len(table["id"])
+
+    records_path, spectra_path, freqs_path = (folder / f for f in ("records.npy", "spectra.npy", "frequencies.npy"))
+    has_ver = "ver_db" in table
+    present = [p.name for p in (records_path, spectra_path) if p.exists()] + (["ver_db column"] if has_ver else [])
+    if len(present) == 0:
+        raise BundleError(
+            "no payload: give records.npy, spectra.npy with frequencies.npy, or a ver_db column in points.csv",
+            source=folder,
+        )
+    if len(present) > 1:
+        raise BundleError(f"more than one payload ({', '.join(present)}); keep exactly one", source=folder)
+
+    scan = Scan(
+        path=folder,
+        scan_id=scan_id,
+        kind=kind,
+        point_ids=table["id"],
+        xy=table["xy"] * unit_scale,
+        valid=table["valid"],
+        payload="records" if records_path.exists() else "spectra" if spectra_path.exists() else "ver",
+        unit_scale=unit_scale,
+        element=element,
+        surveyed=surveyed,
+        note=note,
+        row=table.get("row"),
+        col=table.get("col"),
+        signal_level=table.get("signal_level"),
+        ver_db=table.get("ver_db"),
+        peak_hz=table.get("peak_hz"),
+    )
+    if "peak_hz" in table and not has_ver:
+        raise BundleError("column peak_hz goes with ver_db; ver_db is missing", source=points_path, field="peak_hz")
+
+    if scan.payload == "records":
+        _read_records(scan, doc, records_path, n)
+    elif doc.has("records"):
+        raise doc.fail("records", "table given but records.npy is missing")
+    if scan.payload == "spectra":
+        _read_spectra(scan, doc, spectra_path, freqs_path, n)
+    elif doc.has("spectra"):
+        raise doc.fail("spectra", "table given but spectra.npy is missing")
+    if scan.payload == "ver":
+        finite = np.isfinite(scan.ver_db)
+        if (~finite & scan.valid).any():
+            bad = scan.point_ids[~finite & scan.valid]
+            warnings.warn(
+                f"{points_path}: ver_db: {len(bad)} point(s) without a finite value marked invalid ({_few(bad)})",
+                BundleWarning,
+                stacklevel=2,
+            )
+        scan.valid = scan.valid & finite
+
+    scan.geometry = _geometry(doc)
+    band = doc.table_of("band")
+    if band is not None:
+        scan.band_hz = band.pair("hz", required=True)
+        lo, hi = scan.band_hz
+        if not 0 <= lo < hi:
+            raise band.fail("hz", f"must be [low, high] with 0 <= low < high, got [{lo:g}, {hi:g}]")
+        if scan.sample_rate_hz is not None and hi > scan.sample_rate_hz / 2:
+            raise band.fail("hz", f"upper edge {hi:g} Hz is above the Nyquist frequency {scan.sample_rate_hz / 2:g} Hz")
+        if scan.frequencies is not None and (hi < scan.frequencies[0] or lo > scan.frequencies[-1]):
+            raise band.fail("hz", "lies outside frequencies.npy")
+        band.reject_unknown()
+    elif scan.payload != "ver":
+        raise doc.fail("band", "table with hz = [low, high] is required unless ver_db is given")
+
+    scan.targets = _targets(doc, kind, unit_scale)
+    for t in (scan_t, coords):
+        t.reject_unknown()
+    doc.seen.update({"geometry", "targets", "band"})
+    doc.reject_unknown()
+    return scan
+
+
+def target_names(folder: Path) -> set[str]:
+    """The names of a bundle's control targets, read from its manifest alone ({} when unreadable:
+    the full reader then reports the problem)."""
+    try:
+        doc = load_toml(Path(folder) / "scan.toml", BundleError)
+    except BundleError:
+        return set()
+    raw = doc.get("targets", [])
+    return {t["name"] for t in raw if isinstance(t, dict) and isinstance(t.get("name"), str)} if isinstance(raw, list) else set()
+
+
+def _surveyed(scan_t: Fields) -> dt.datetime | None:
+    value = scan_t.raw("surveyed")
+    if value is None:
+        return None
+    if isinstance(value, (dt.datetime, dt.date)) and not SURVEYED_YEARS[0] <= value.year <= SURVEYED_YEARS[1]:
+        raise scan_t.fail("surveyed", f"year {value.year} is outside {SURVEYED_YEARS[0]}..{SURVEYED_YEARS[1]}")
+    if isinstance(value, dt.datetime):
+        return value if value.tzinfo else value.replace(tzinfo=dt.timezone.utc)
+    if isinstance(value, dt.date):
+        return dt.datetime(value.year, value.month, value.day, tzinfo=dt.timezone.utc)
+    raise scan_t.fail("surveyed", f"must be a TOML date or datetime, got {value!r}")
+
+
+def _read_points(path: Path, kind: str, unit_scale: float) -> dict[str, np.ndarray]:
+    _regular_file(path, MAX_POINTS_BYTES)
+    try:
+        text = path.read_text(encoding="utf-8-sig")
+    except UnicodeDecodeError as exc:
+        raise BundleError("not UTF-8 text", source=path) from exc
+    reader = csv.reader(text.splitlines())
+    try:
+        rows = list(reader)
+    except csv.Error as exc:
+        raise BundleError(f"not readable as CSV ({exc}; a stray quote?)", source=path,
+                          field=f"line {reader.line_num}") from exc
+    if not rows:
+        raise BundleError("empty file; a header row is required", source=path)
+    header = [h.strip() for h in rows[0]]
+    if len(set(header)) != len(header):
+        dup = sorted({h for h in header if header.count(h) > 1})
+        raise BundleError(f"duplicate column(s) {', '.join(dup)}", source=path, field="line 1")
+    xcol, ycol = ("x", "y") if kind == "surface" else ("ax", "ay")
+    for need in ("id", xcol, ycol):
+        if need not in header:
+            raise BundleError(f"required column {need!r} missing (coordinates kind {kind!r})", source=path, field="line 1")
+    if ("row" in header) != ("col" in header):
+        raise BundleError("columns row and col go together; one is missing", source=path, field="line 1")
+    other = ("ax", "ay") if kind == "surface" else ("x", "y")
+    unknown = [h for h in header if h not in KNOWN_COLUMNS or h in other]
+    if unknown:
+        h = unknown[0]
+        if h in other:
+            why = f"belongs to coordinates kind {'angles' if kind == 'surface' else 'surface'}, this scan is {kind!r}"
+        else:
+            near = difflib.get_close_matches(h, sorted(KNOWN_COLUMNS - set(other)), n=1, cutoff=0.6)
+            why = f"unknown column{f'; did you mean {near[0]!r}?' if near else ''} (known: {', '.join(sorted(KNOWN_COLUMNS - set(other)))})"
+        raise BundleError(why, source=path, field=f"line 1, column {h}")
+    linenos = [i for i, r in enumerate(rows[1:], start=2) if any(c.strip() for c in r)]
+    body = [rows[i - 1] for i in linenos]
+    if not body:
+        raise BundleError("no point rows after the header", source=path)
+    for ln, r in zip(linenos, body):
+        if len(r) != len(header):
+            raise BundleError(f"has {len(r)} fields, header has {len(header)}", source=path, field=f"line {ln}")
+    cols = {h: [c.strip() for c in column] for h, column in zip(header, zip(*body))}
+
+    ids = np.array(cols["id"], dtype=object)
+    seen: dict[str, int] = {}
+    for pid, ln in zip(ids, linenos):
+        if not pid:
+            raise BundleError("empty point id", source=path, field=f"line {ln}, column id")
+        if pid in seen:
+            raise BundleError(f"duplicate point id {pid!r} (first on line {seen[pid]})", source=path, field=f"line {ln}, column id")
+        seen[pid] = ln
+
+    def numbers(name: str, *, integer: bool = False, allow_empty: bool = False) -> np.ndarray:
+        """A column as numbers, parsed at once; where that fails, the first bad line is found and named."""
+        text = [("nan" if c == "" else c) for c in cols[name]] if allow_empty else cols[name]
+        try:
+            out = np.array(text, dtype=np.float64)
+        except ValueError:
+            values = []
+            for c, ln in zip(text, linenos):
+                try:
+                    values.append(float(c))
+                except ValueError:
+                    raise BundleError(f"not a number: {c!r}", source=path, field=f"line {ln}, column {name}") from None
+            out = np.array(values, dtype=np.float64)
+        if integer:
+            bad = ~np.isfinite(out) | (out != np.trunc(out))
+            if bad.any():
+                k = int(np.argmax(bad))
+                raise BundleError(f"not an integer: {cols[name][k]!r}", source=path,
+                                  field=f"line {linenos[k]}, column {name}")
+        return out
+
+    table: dict[str, np.ndarray] = {"id": ids}
+    xy = np.column_stack([numbers(xcol), numbers(ycol)])
+    bad = ~np.isfinite(xy).all(axis=1)
+    if bad.any():
+        ln = linenos[int(np.argmax(bad))]
+        raise BundleError("coordinates must be finite", source=path, field=f"line {ln}, columns {xcol}/{ycol}")
+    limit, what = (MAX_ANGLE_DEG, "degrees") if kind == "angles" else (MAX_SURFACE_M / unit_scale, "coordinate units")
+    far = (np.abs(xy) > limit).any(axis=1)
+    if far.any():
+        ln = linenos[int(np.argmax(far))]
+        raise BundleError(f"coordinate beyond {limit:g} {what} (documented range)", source=path,
+                          field=f"line {ln}, columns {xcol}/{ycol}")
+    table["xy"] = xy
+    if "row" in header:
+        row, col = numbers("row", integer=True).astype(np.int64), numbers("col", integer=True).astype(np.int64)
+        if (row < 0).any() or (col < 0).any():
+            ln = linenos[int(np.argmax((row < 0) | (col < 0)))]
+            raise BundleError("grid indices must be >= 0", source=path, field=f"line {ln}, columns row/col")
+        cells = (int(row.max() - row.min()) + 1) * (int(col.max() - col.min()) + 1)
+        if cells > CELLS_PER_POINT * len(ids) + 4096:
+            ln = linenos[int(np.argmax(np.maximum(row - row.min(), col - col.min())))]
+            raise BundleError(f"row/col span {cells} grid cells for {len(ids)} points (at most {CELLS_PER_POINT} "
+                              "per point); the indices are not a grid", source=path, field=f"line {ln}, columns row/col")
+        key = row * (col.max() + 1) + col
+        uniq, first = np.unique(key, return_index=True)
+        if len(uniq) != len(key):
+            dup = np.setdiff1d(np.arange(len(key)), first)[0]
+            raise BundleError(
+                f"grid cell ({row[dup]}, {col[dup]}) used twice", source=path, field=f"line {linenos[dup]}, columns row/col"
+            )
+        table["row"], table["col"] = row, col
+    valid = np.ones(len(ids), dtype=bool)
+    if "valid" in header:
+        for k, (s, ln) in enumerate(zip(cols["valid"], linenos)):
+            if s not in ("0", "1", ""):
+                raise BundleError(f"must be 1 or 0, got {s!r}", source=path, field=f"line {ln}, column valid")
+            valid[k] = s != "0"
+    table["valid"] = valid
+    if "signal_level" in header:
+        level = numbers("signal_level", allow_empty=True)
+        out = np.isfinite(level) & ((level < 0) | (level > 1))
+        if out.any():
+            ln = linenos[int(np.argmax(out))]
+            raise BundleError("must lie in 0..1", source=path, field=f"line {ln}, column signal_level")
+        table["signal_level"] = level
+    for name in ("ver_db", "peak_hz"):
+        if name in header:
+            table[name] = numbers(name, allow_empty=True)
+    return table
+
+
+def _regular_file(path: Path, max_bytes: int | None = None) -> None:
+    """A regular file (not a FIFO or a device, which would block or never end), within its size limit."""
+    if not path.exists():
+        raise BundleError("file not found", source=path)
+    st = path.stat()
+    if not stat.S_ISREG(st.st_mode):
+        raise BundleError("not a regular file (a pipe or device cannot be read as scan data)", source=path)
+    if max_bytes is not None and st.st_size > max_bytes:
+        raise BundleError(f"is {st.st_size} bytes, more than the {max_bytes} bytes documented as the limit", source=path)
+
+
+def _load_npy(path: Path) -> np.ndarray:
+    """The array memory-mapped, after checking that the file is exactly as long as its header says."""
+    _regular_file(path)
+    try:
+        arr = np.load(path, mmap_mode="r", allow_pickle=False)
+    except Exception as exc:  # numpy raises ValueError / OSError / EOFError for bad (or truncated) files
+        raise BundleError(f"not a readable .npy array ({exc})", source=path) from exc
+    size, need = path.stat().st_size, int(getattr(arr, "offset", 0)) + int(arr.nbytes)
+    if isinstance(arr, np.memmap) and size != need:
+        raise BundleError(f"is {size} bytes but its header {arr.shape} {arr.dtype} needs {need}; the file is longer "
+                          "than its array", source=path)
+    return arr
+
+
+def _check_float(arr: np.ndarray, path: Path) -> None:
+    if arr.dtype not in (np.float32, np.float64):
+        raise BundleError(f"dtype must be float32 or float64, got {arr.dtype}", source=path)
+
+
+def _read_records(scan: Scan, doc: Fields, path: Path, n: int) -> None:
+    rec = _load_npy(path)
+    _check_float(rec, path)
+    if rec.ndim not in (2, 3):
+        raise BundleError(f"shape must be (points, samples) or (points, shots, samples), got {rec.shape}", source=path)
+    if rec.shape[0] != n:
+        raise BundleError(f"has {rec.shape[0]} points on its first axis, points.csv has {n}", source=path)
+    if rec.shape[-1] < 8 or (rec.ndim == 3 and rec.shape[1] < 1):
+        raise BundleError(f"too few samples per record: shape {rec.shape}", source=path)
+    if rec.shape[-1] > MAX_SAMPLES or (rec.ndim == 3 and rec.shape[1] > MAX_SHOTS):
+        raise BundleError(f"shape {rec.shape} is beyond the documented limits ({MAX_SAMPLES} samples, {MAX_SHOTS} shots "
+                          "per point); a tone-burst record is far shorter", source=path)
+    t = doc.table_of("records")
+    if t is None:
+        raise doc.fail("records", "table is required when records.npy is present")
+    scan.records = rec
+    scan.sample_rate_hz = t.number("sample_rate_hz", required=True, positive=True)
+    scan.velocity_scale = VELOCITY_TO_MPS[t.choice("velocity_unit", tuple(VELOCITY_TO_MPS))]
+    scan.trigger_s = t.number("trigger_s", 0.0, minimum=0.0) or 0.0
+    gate = t.pair("gate_s")
+    if gate is not None:
+        if not 0 <= gate[0] < gate[1]:
+            raise t.fail("gate_s", f"must be [start, end] with 0 <= start < end, got [{gate[0]:g}, {gate[1]:g}]")
+        scan.gate_s = gate
+    t.reject_unknown()
+
+
+def _read_spectra(scan: Scan, doc: Fields, path: Path, freqs_path: Path, n: int) -> None:
+    spec = _load_npy(path)
+    _check_float(spec, path)
+    if spec.ndim != 2:
+        raise BundleError(f"shape must be (points, frequencies), got {spec.shape}", source=path)
+    if spec.shape[0] != n:
+        raise BundleError(f"has {spec.shape[0]} points on its first axis, points.csv has {n}", source=path)
+    if not freqs_path.exists():
+        raise BundleError("file not found (required with spectra.npy)", source=freqs_path)
+    freqs = np.asarray(_load_npy(freqs_path), dtype=np.float64)
+    if freqs.ndim != 1 or len(freqs) != spec.shape[1]:
+        raise BundleError(f"shape must be ({spec.shape[1]},) to match spectra.npy, got {freqs.shape}", source=freqs_path)
+    if not np.isfinite(freqs).all() or (np.diff(freqs) <= 0).any() or len(freqs) < 3:
+        raise BundleError("must be finite, strictly increasing Hz values (at least 3)", source=freqs_path)
+    t = doc.table_of("spectra")
+    if t is None:
+        raise doc.fail("spectra", "table is required when spectra.npy is present")
+    scale = VELOCITY_TO_MPS[t.choice("velocity_unit", tuple(VELOCITY_TO_MPS))]
+    scan.spectra, scan.frequencies, scan.velocity_scale = spec, freqs, scale
+    t.reject_unknown()
+
+
+def _geometry(doc: Fields) -> Geometry:
+    g = doc.table_of("geometry")
+    if g is None:
+        return Geometry()
+    geo = Geometry(
+        source_distance_m=g.number("source_distance_m", positive=True),
+        head_distance_m=g.number("head_distance_m", positive=True),
+        air_temperature_c=g.number("air_temperature_c", 20.0, minimum=-60.0) or 0.0,
+    )
+    if (g.number("air_temperature_c") or 0.0) > 60:
+        raise g.fail("air_temperature_c", "must lie in -60..60 °C")
+    g.reject_unknown()
+    return geo
+
+
+def _targets(doc: Fields, kind: str, unit_scale: float) -> list[Target]:
+    raw = doc.raw("targets", [])
+    if not isinstance(raw, list):
+        raise doc.fail("targets", "must be an array of tables [[targets]]")
+    out: list[Target] = []
+    names: set[str] = set()
+    for i, item in enumerate(raw):
+        t = Fields(item, f"targets[{i}]", doc.source, BundleError)
+        name = t.string("name", required=True)
+        assert name is not None
+        if name in names:
+            raise t.fail("name", f"duplicate target name {name!r}")
+        names.add(name)
+        scanner = t.pair("scanner", required=True)
+        assert scanner is not None
+        if kind == "surface":
+            scanner = (scanner[0] * unit_scale, scanner[1] * unit_scale)
+        out.append(Target(name=name, scanner=scanner, drawing=t.pair("drawing")))
+        t.reject_unknown()
+    return out
+
+
+def _few(ids: np.ndarray, k: int = 5) -> str:
+    shown = ", ".join(str(i) for i in ids[:k])
+    return shown + (f" and {len(ids) - k} more" if len(ids) > k else "")
