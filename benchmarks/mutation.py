@@ -25,8 +25,9 @@ import subprocess
 import sys
 import tempfile
 import time
-import tomllib
 from pathlib import Path
+
+import tomllib
 
 ROOT = Path(__file__).resolve().parents[1]
 REPORT = ROOT / "benchmarks" / "mutation-report.md"

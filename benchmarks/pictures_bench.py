@@ -23,8 +23,8 @@ sys.path.insert(0, str(Path(__file__).parent))
 from campaign_bench import write_site
 
 from overlay.campaign import run_campaign
-from overlay.outputs.write import draw_pictures
 from overlay.io.site import read_site
+from overlay.outputs.write import draw_pictures
 
 
 def main() -> None:

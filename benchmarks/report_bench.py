@@ -25,8 +25,8 @@ sys.path.insert(0, str(Path(__file__).parent))
 from campaign_bench import write_site
 
 from overlay.campaign import run_campaign
-from overlay.outputs.write import draw_pictures, write_outputs
 from overlay.io.site import read_site
+from overlay.outputs.write import draw_pictures, write_outputs
 
 PER_ELEMENT = 10
 

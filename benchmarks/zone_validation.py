@@ -21,6 +21,7 @@ sys.path.insert(0, str(ROOT))
 
 from tests.independent_cases import cases, run_case  # noqa: E402
 
+
 def table(rows: list[dict[str, object]]) -> str:
     head = ("case", "zones", "contour_err", "outline_err", "centroid_m", "false_m2", "basis", "misfit", "reference",
             "span_db")

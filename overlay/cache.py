@@ -19,13 +19,13 @@ from typing import Any
 import numpy as np
 import shapely
 
-from overlay.signal.energy import Reference
 from overlay.geometry.fits import Fit
-from overlay.signal.gate import Gate
-from overlay.scan import ScanResult
 from overlay.geometry.registration import TargetResult
-from overlay.outputs.staging import part_path
 from overlay.geometry.transforms import Affine, Projective, Similarity
+from overlay.outputs.staging import part_path
+from overlay.scan import ScanResult
+from overlay.signal.energy import Reference
+from overlay.signal.gate import Gate
 from overlay.zones.zone import Zone
 
 KINDS: dict[str, type] = {c.__name__: c for c in (ScanResult, Gate, Reference, Fit, Similarity, Affine, Projective,

@@ -10,8 +10,8 @@ a scan's result lets a rerun recompute only the scans that changed.
 from __future__ import annotations
 
 import contextlib
-import dataclasses
 import ctypes
+import dataclasses
 import functools
 import hashlib
 import json
@@ -27,10 +27,11 @@ from pathlib import Path
 from typing import Any, Callable, Iterable
 
 from overlay import __version__, cache
-from overlay.errors import CacheWarning, OverlayError, UsageError
-from overlay.scan import RunResult, ScanResult, finish_site, now_utc, scan_entry
+from overlay.errors import CacheWarning, OverlayError, ScanFailedError, Seen, UsageError, collected_warnings, warn_again
 from overlay.io.site import ScanEntry, Site
+from overlay.job import RunResult, finish_site, now_utc
 from overlay.outputs.staging import part_path, remove_stale_parts
+from overlay.scan import ScanResult, scan_entry
 
 BUNDLE_FILES = ("scan.toml", "points.csv", "records.npy", "spectra.npy", "frequencies.npy")
 
@@ -115,12 +116,11 @@ def settings_digest(site: Site, entry: ScanEntry) -> str:
 
 
 def _work(entry: ScanEntry, site: Site, progress: Callable[[int], None] | None = None, single_thread: bool = False
-          ) -> tuple[ScanResult | None, Failure | None, list[str]]:
+          ) -> tuple[ScanResult | None, Failure | None, list[Seen]]:
     """One scan in a worker: its result or its failure, and the warnings it raised."""
     if single_thread:
         _one_thread()
-    with warnings.catch_warnings(record=True) as seen:
-        warnings.simplefilter("always")
+    with collected_warnings() as seen:
         try:
             result, failure = scan_entry(entry, site, progress), None
         except OverlayError as exc:
@@ -129,7 +129,7 @@ def _work(entry: ScanEntry, site: Site, progress: Callable[[int], None] | None =
             result, failure = None, Failure(entry.bundle, exc.line(), exc.exit_code, exc.details)
         except Exception as exc:  # a bug in one scan must not lose the others
             result, failure = None, Failure(entry.bundle, f"unexpected {type(exc).__name__}: {exc}", 1)
-    return result, failure, [str(w.message) for w in seen]
+    return result, failure, seen
 
 
 INDEX = "digests.json"
@@ -169,7 +169,7 @@ def _pool_worker(site: Site | None = None) -> None:
     _die_with_parent()
 
 
-def _work_here(entry: ScanEntry) -> tuple[ScanResult | None, Failure | None, list[str]]:
+def _work_here(entry: ScanEntry) -> tuple[ScanResult | None, Failure | None, list[Seen]]:
     """One scan in a pool worker, for the site the worker was started with."""
     return _work(entry, _SITE[0])
 
@@ -220,7 +220,7 @@ def _map_dask(entries: list[ScanEntry], site: Site, address: str) -> Iterable[tu
     try:
         from dask.distributed import Client
     except ImportError as exc:
-        raise UsageError("--dask needs the optional extra: pip install 'overlay[dask]'") from exc
+        raise UsageError("running on a Dask scheduler needs the optional extra: pip install 'overlay[dask]'") from exc
     try:
         client = Client(address, timeout="10s")
     except (OSError, TimeoutError) as exc:
@@ -250,7 +250,7 @@ def run_campaign(
         check_register(site.elements)  # an unreachable register is found before the scans, not after
     out = CampaignResult(None)
     results: dict[int, ScanResult] = {}
-    caught: list[str] = []
+    caught: list[Seen] = []
     todo: list[int] = []
     keys: dict[int, Path] = {}
     known = _load_index(cache_dir)
@@ -274,13 +274,13 @@ def run_campaign(
         todo.append(k)
     entries = [site.scans[k] for k in todo]
     if jobs < 1:
-        raise UsageError(f"--jobs must be at least 1, got {jobs}")
+        raise UsageError(f"jobs (parallel processes) must be at least 1, got {jobs}")
     stream = _map_dask(entries, site, dask_address) if dask_address else _map_local(entries, site, jobs, progress)
     for k, (result, failure, seen) in zip(todo, stream):
         caught.extend(seen)
         if failure is not None:
             if strict:
-                raise _as_error(failure)
+                raise ScanFailedError(failure.message, failure.exit_code, failure.details)
             out.failures.append(failure)
             if on_done is not None:
                 on_done(site.scans[k].bundle.name, "failed")
@@ -296,8 +296,7 @@ def run_campaign(
         if on_done is not None:
             on_done(result.scan_id, "done")
     _save_index(cache_dir, known)
-    for w in caught:
-        warnings.warn(w, stacklevel=2)
+    warn_again(caught)
     ordered = [results[k] for k in sorted(results)]
     if ordered:
         out.result = finish_site(site, ordered, started, caught)
@@ -323,9 +322,3 @@ def summary(c: CampaignResult) -> str:
         for f in c.failures:
             lines.append(f"  {str(f.bundle):<{width}}  exit {f.exit_code}  {f.message}")
     return "\n".join(lines)
-
-
-def _as_error(f: Failure) -> OverlayError:
-    err = OverlayError(f.message, details=f.details)
-    err.exit_code = f.exit_code
-    return err

@@ -27,11 +27,16 @@ from typing import Any
 
 import numpy as np
 
-from overlay.signal.gate import speed_of_sound
-from overlay.zones.plate import aci318_modulus_pa, clamped_lambda, clamped_mode_shape, plate_frequency
+from overlay.errors import SiteFileError
 from overlay.io.site import read_site
 from overlay.io.tomlio import load_toml
-from overlay.errors import SiteFileError
+from overlay.signal.gate import speed_of_sound
+from overlay.zones.plate import (
+    aci318_modulus_pa,
+    clamped_lambda,
+    clamped_mode_shape,
+    plate_frequency,
+)
 
 SCENARIO_DIR = Path(__file__).resolve().parent.parent / "demo_site"
 

@@ -7,8 +7,10 @@ so library callers can catch ``ValueError`` / ``OSError`` as usual.
 
 from __future__ import annotations
 
+import contextlib
+import warnings
 from pathlib import Path
-from typing import Sequence
+from typing import Iterator, Sequence
 
 EXIT_OK = 0
 EXIT_UNEXPECTED = 1
@@ -109,3 +111,32 @@ class OutputWarning(OverlayWarning):
 
 class CacheWarning(OverlayWarning):
     """A cache entry could not be trusted; the scan is computed again (no number changes)."""
+
+
+Seen = tuple[type[Warning], str]  # a warning kept: its category and message (they pickle, from workers too)
+
+
+@contextlib.contextmanager
+def collected_warnings() -> Iterator[list[Seen]]:
+    """Collect the warnings raised inside (every one, not once per place) for the run to report them;
+    the list is filled when the block ends."""
+    found: list[Seen] = []
+    with warnings.catch_warnings(record=True) as seen:
+        warnings.simplefilter("always")
+        yield found
+    found.extend((w.category, str(w.message)) for w in seen)
+
+
+def warn_again(seen: Sequence[Seen]) -> None:
+    """Raise collected warnings again where the caller can see them, in the tool's warning family."""
+    for category, message in seen:
+        warnings.warn(message, category if issubclass(category, OverlayWarning) else OverlayWarning, stacklevel=3)
+
+
+class ScanFailedError(OverlayError):
+    """A scan of a campaign failed (``--strict`` stops there): its own error's line and exit code."""
+
+    def __init__(self, message: str, exit_code: int, details: Sequence[str] = ()):
+        super().__init__(message, details=details)
+        self.exit_code = exit_code
+

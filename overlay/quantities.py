@@ -13,8 +13,8 @@ from dataclasses import dataclass
 from typing import TYPE_CHECKING, Sequence
 
 if TYPE_CHECKING:
-    from overlay.scan import RunResult
     from overlay.io.site import ZoneClass
+    from overlay.job import RunResult
     from overlay.zones.zone import Zone
 
 

@@ -10,8 +10,8 @@ import numpy as np
 import pytest
 
 from overlay.demo import generate
-from overlay.scan import run_site
 from overlay.io.site import read_site
+from overlay.job import run_site
 
 
 def write_bundle(

@@ -254,9 +254,9 @@ LEVEL = 6.0
 
 def run_case(case: Case, folder: Path, reference: str = "auto") -> dict[str, object]:
     """Write the case, run it with the default settings (and ``reference``), and measure it against its truth."""
-    from overlay.scan import run_site
-    from overlay.quantities import defects
     from overlay.io.site import read_site
+    from overlay.job import run_site
+    from overlay.quantities import defects
 
     write_case(case, folder / case.name)
     site = folder / f"{case.name}.toml"

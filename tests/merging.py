@@ -9,8 +9,8 @@ import os
 import random
 import time
 
-from overlay.errors import OutputConflictError
 from overlay.assets.merge import merge_findings
+from overlay.errors import OutputConflictError
 
 
 def subset(result, scans: set[str]):

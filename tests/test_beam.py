@@ -5,7 +5,11 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from overlay.signal.incidence import cos_incidence_from_angles, cos_incidence_from_head, normal_energy
+from overlay.signal.incidence import (
+    cos_incidence_from_angles,
+    cos_incidence_from_head,
+    normal_energy,
+)
 
 
 def test_angles_on_boresight_and_off() -> None:

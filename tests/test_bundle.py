@@ -8,8 +8,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from overlay.io.bundle import read_bundle
 from overlay.errors import BundleError, BundleWarning
+from overlay.io.bundle import read_bundle
 
 from .conftest import write_bundle
 

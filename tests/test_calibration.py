@@ -21,7 +21,17 @@ import numpy as np
 import pytest
 import shapely
 
-from overlay.calibration.agreement import Counts, area_agreement, auc, best_youden, cohen_kappa, counts_at, roc, sweep, wilson
+from overlay.calibration.agreement import (
+    Counts,
+    area_agreement,
+    auc,
+    best_youden,
+    cohen_kappa,
+    counts_at,
+    roc,
+    sweep,
+    wilson,
+)
 from overlay.cli.main import main
 
 from .test_gis_clients import needs_validator, validate

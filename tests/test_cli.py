@@ -2,9 +2,8 @@
 
 from __future__ import annotations
 
-import re
-
 import os
+import re
 import subprocess
 import sys
 from pathlib import Path
@@ -200,8 +199,8 @@ def test_scattered_points_without_row_col_run_end_to_end(tmp_path: Path) -> None
     lines = (folder / "points.csv").read_text().splitlines()
     lines = [lines[0]] + [f"P{k},{x:.5f},{y:.5f},{v:.4f}" for k, ((x, y), v) in enumerate(zip(xy, ver))]
     (folder / "points.csv").write_text("\n".join(lines) + "\n")
-    from overlay.scan import run_site
     from overlay.io.site import read_site
+    from overlay.job import run_site
 
     result = run_site(read_site(write_site(tmp_path, ["S-1"])))
     (watch,) = [z for z in result.zones if z.class_name == "watch"]

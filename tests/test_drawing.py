@@ -23,12 +23,12 @@ import pytest
 import shapely
 from ezdxf import bbox
 
-from overlay.outputs import palette
 from overlay.exporters.dxf import APPID, DxfExporter, fixed_layers, is_ours, layer_names
-from overlay.outputs.write import write_outputs
-from overlay.scan import run_site
-from overlay.quantities import defects
 from overlay.io.site import read_site
+from overlay.job import run_site
+from overlay.outputs import palette
+from overlay.outputs.write import write_outputs
+from overlay.quantities import defects
 
 from .conftest import write_bundle, write_site
 

@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from overlay.signal.energy import reference_energy, ver_db
 from overlay.errors import SignalError
+from overlay.signal.energy import reference_energy, ver_db
 
 
 def test_db_values() -> None:

@@ -8,8 +8,8 @@ import numpy as np
 import pytest
 
 from overlay.cli.main import main
-from overlay.scan import run_site
 from overlay.io.site import read_site
+from overlay.job import run_site
 
 from .conftest import write_bundle, write_site
 

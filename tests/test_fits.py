@@ -10,7 +10,11 @@ import pytest
 
 from overlay.errors import RegistrationError
 from overlay.geometry.fits import fit_points
-from overlay.geometry.registration import cos_incidence_from_homography, pinhole_to_surface, tangents
+from overlay.geometry.registration import (
+    cos_incidence_from_homography,
+    pinhole_to_surface,
+    tangents,
+)
 from overlay.geometry.transforms import Affine, Projective
 
 # EPSG Guidance Note 7-2, method 9624 (affine parametric), Jamaica 1875 / Old Grid (ft) →
@@ -153,8 +157,8 @@ def test_projective_equals_affine_form_for_transforms() -> None:
 def test_angle_scan_with_three_targets_goes_through_the_pinhole(tmp_path) -> None:
     # an angle scan of a wall normal to the boresight at 4 m, three targets: pinhole to surface metres,
     # then a similarity; a target at (10°, 0) lies 4·tan 10° = 0.7053 m from the boresight (hand-worked)
-    from overlay.io.bundle import read_bundle
     from overlay.geometry.registration import register
+    from overlay.io.bundle import read_bundle
     from overlay.io.site import ScanEntry, read_site
 
     from .conftest import write_site

@@ -8,8 +8,8 @@ import numpy as np
 import pytest
 
 from overlay.errors import CRSCheckError, RegistrationError, RegistrationWarning
-from overlay.geometry.fits import check_fit, fit_points
 from overlay.geometry.crs import check_map_crs, from_placement, to_crs, transform_xy
+from overlay.geometry.fits import check_fit, fit_points
 from overlay.geometry.transforms import Similarity
 
 # EPSG Guidance Note 7-2, method 9621 (2D similarity), example ED50 / UTM 31N → ETRS89 / UTM 31N:
@@ -174,10 +174,10 @@ def test_millimetre_drawings_round_trip_exactly() -> None:
     p_mm = from_placement((500000.0, 5700000.0), 63.5, 1.0, "mm").apply(np.array([12345.0, 6789.0]))
     p_m = from_placement((500000.0, 5700000.0), 63.5, 1.0, "m").apply(np.array([12.345, 6.789]))
     np.testing.assert_allclose(p_mm, p_m, rtol=0, atol=1e-9)
-    from overlay.geometry.crs import UNIT_TO_M
+    from overlay.units import LENGTH_TO_M
 
     x = np.array([0.001, 1.0, 123456.789])
-    assert np.array_equal((x / UNIT_TO_M["mm"]) * UNIT_TO_M["mm"], x)
+    assert np.array_equal((x / LENGTH_TO_M["mm"]) * LENGTH_TO_M["mm"], x)
 
 
 def test_station_offset_straight_and_arc() -> None:

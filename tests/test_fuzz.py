@@ -36,12 +36,12 @@ def _value(v: Any) -> str:
         return "nan" if math.isnan(v) else ("inf" if v == math.inf else "-inf" if v == -math.inf else repr(v))
     if isinstance(v, (int, dt.datetime, dt.date)):
         return v.isoformat() if isinstance(v, (dt.datetime, dt.date)) else str(v)
-    if isinstance(v, str):
-        return json.dumps(v, ensure_ascii=False)  # JSON's escapes (\uXXXX, \n, \") are TOML's too
+    if isinstance(v, str):  # JSON's escapes (\uXXXX, \n, \") are TOML's too; TOML also refuses a raw DEL
+        return json.dumps(v, ensure_ascii=False).replace("\x7f", "\\u007f")
     if isinstance(v, list):
         return "[" + ", ".join(_value(x) for x in v) + "]"
     if isinstance(v, dict):
-        return "{" + ", ".join(f"{json.dumps(k)} = {_value(x)}" for k, x in v.items()) + "}"
+        return "{" + ", ".join(f"{_value(str(k))} = {_value(x)}" for k, x in v.items()) + "}"
     raise TypeError(type(v))
 
 

@@ -26,8 +26,8 @@ import pyogrio
 import pytest
 import shapely
 
-from overlay.outputs import palette
 from overlay.assets.merge import merge_findings
+from overlay.outputs import palette
 from overlay.outputs.write import write_outputs
 from overlay.quantities import defects
 

@@ -10,14 +10,14 @@ import numpy as np
 import pytest
 import pyuff
 
-from overlay.io.bundle import read_bundle
 from overlay.cli.main import main
 from overlay.errors import BundleError
 from overlay.importers import Imported, write_bundle
 from overlay.importers.table import MatrixTableImporter, PointTableImporter
 from overlay.importers.uff import UffImporter
-from overlay.scan import run_site
+from overlay.io.bundle import read_bundle
 from overlay.io.site import read_site
+from overlay.job import run_site
 
 from .conftest import write_site
 

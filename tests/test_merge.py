@@ -28,8 +28,13 @@ import shapely.affinity
 
 import overlay.assets.gpkg_sql as gpkg_sql
 from overlay.assets.elements import ElementLayer, split_by_assets
+from overlay.assets.merge import (
+    backups_of,
+    findings_rows,
+    merge_findings,
+    prepare_merge,
+)
 from overlay.errors import OutputConflictError, RegistrationError, SiteFileError
-from overlay.assets.merge import backups_of, findings_rows, merge_findings, prepare_merge
 
 from .merging import merge_child, race, subset
 

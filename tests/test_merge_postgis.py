@@ -22,15 +22,14 @@ import pyogrio
 import pytest
 import shapely
 
-from overlay.cli.main import main
 from overlay.assets.elements import read_asset_table
-from overlay.errors import OutputConflictError, SiteFileError
 from overlay.assets.merge import merge_findings
+from overlay.cli.main import main
+from overlay.errors import OutputConflictError, SiteFileError
 from overlay.io.site import read_site
 
 from .merging import race, subset
 from .postgres_server import start
-
 
 
 @pytest.fixture(scope="module")

@@ -4,9 +4,9 @@
 from __future__ import annotations
 
 import csv
-import re
 import dataclasses
 import io
+import re
 import shutil
 import struct
 import subprocess
@@ -18,8 +18,8 @@ import matplotlib.text
 import numpy as np
 import pytest
 
-from overlay.outputs import pictures
 from overlay.cautions import CAUTIONS
+from overlay.outputs import pictures
 from overlay.outputs.write import write_outputs
 
 VOID = {"meta", "img", "br", "hr", "link", "input"}

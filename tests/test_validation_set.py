@@ -17,7 +17,6 @@ from overlay.zones.outline import MISFIT_MAX
 
 from .independent_cases import Case, Defect, cases, run_case
 
-
 # --- the sound field ------------------------------------------------------------------------------
 
 @pytest.mark.parametrize("kind", ["plane", "beam"])

@@ -33,16 +33,21 @@ import shapely
 from shapely.geometry import MultiPolygon
 
 from overlay.assets import gpkg_sql
-from overlay.outputs import palette, styles
 from overlay.assets.elements import asset_table_sql
-from overlay.errors import CRSCheckError, OutputConflictError, RegistrationError, SiteFileError
+from overlay.errors import (
+    CRSCheckError,
+    OutputConflictError,
+    RegistrationError,
+    SiteFileError,
+)
 from overlay.geometry.crs import reproject
-from overlay.quantities import area_field, defects
+from overlay.outputs import palette, styles
 from overlay.outputs.staging import glob_escape, part_path, remove_stale_parts
+from overlay.quantities import area_field, defects
 
 if TYPE_CHECKING:
     from overlay.assets.merge_postgis import OpenDbMerge
-    from overlay.scan import RunResult
+    from overlay.job import RunResult
     from overlay.zones.zone import Zone
 
 SOURCE = "overlay"

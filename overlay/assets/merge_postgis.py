@@ -22,16 +22,37 @@ from typing import TYPE_CHECKING, Any
 
 import shapely
 
+from overlay.assets.merge import (
+    GEOMETRY_TYPES,
+    KEY_FIELDS,
+    SOURCE,
+    WAIT_S,
+    MergeSummary,
+    as_multi,
+    check_layer_name,
+    check_placement,
+    findings_fields,
+    findings_rows,
+    into_crs,
+    refuse_losses,
+    scans_of,
+)
+from overlay.assets.postgis import (
+    asset_table_pg,
+    columns,
+    connect,
+    describe_database,
+    geometry_column,
+    lock_key,
+    srid_crs,
+    table_name,
+)
 from overlay.errors import CRSCheckError, OutputConflictError, SiteFileError
-from overlay.assets.merge import (GEOMETRY_TYPES, KEY_FIELDS, SOURCE, WAIT_S, MergeSummary, as_multi, check_layer_name,
-                    check_placement, findings_fields, findings_rows, into_crs, refuse_losses, scans_of)
-from overlay.assets.postgis import (asset_table_pg, columns, connect, describe_database, geometry_column, lock_key, srid_crs,
-                      table_name)
 
 if TYPE_CHECKING:
     import psycopg
 
-    from overlay.scan import RunResult
+    from overlay.job import RunResult
 
 PG_TYPES = {"TEXT": "text", "REAL": "double precision", "DATETIME": "timestamp with time zone"}
 COMPATIBLE = {  # an existing column of these types can hold our values

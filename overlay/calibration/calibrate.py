@@ -30,12 +30,24 @@ import numpy as np
 import shapely
 from shapely.geometry.base import BaseGeometry
 
-from overlay.calibration.agreement import (AreaAgreement, Counts, area_agreement, auc, best_youden, bootstrap_level,
-                        reaching_sensitivity, reaching_specificity, roc, sweep, wilson)
+from overlay.calibration.agreement import (
+    AreaAgreement,
+    Counts,
+    area_agreement,
+    auc,
+    best_youden,
+    bootstrap_level,
+    reaching_sensitivity,
+    reaching_specificity,
+    roc,
+    sweep,
+    wilson,
+)
 
 if TYPE_CHECKING:
-    from overlay.scan import RunResult, ScanResult
     from overlay.calibration.sounding import Sounding
+    from overlay.job import RunResult
+    from overlay.scan import ScanResult
 
 LEVELS = tuple(float(v) for v in np.arange(2.0, 20.0 + 1e-9, 0.5))
 TARGET_SENSITIVITY = 0.9

@@ -14,12 +14,18 @@ from typing import TYPE_CHECKING
 import numpy as np
 import shapely
 
-from overlay.calibration.calibrate import LEVELS, TARGET_SENSITIVITY, TARGET_SPECIFICITY, Calibration, suggested_classes
+from overlay.calibration.calibrate import (
+    LEVELS,
+    TARGET_SENSITIVITY,
+    TARGET_SPECIFICITY,
+    Calibration,
+    suggested_classes,
+)
 from overlay.cautions import CAUTIONS, cautions_text
 from overlay.outputs.report_text import fmt, interval
 
 if TYPE_CHECKING:
-    from overlay.scan import RunResult
+    from overlay.job import RunResult
 
 LIMITS = ("Sounding is a reference, not the truth: the hammer misses small and deep hollows, and a traced "
           "outline is drawn generously around what rang hollow. Agreement figures measure the scans against "

@@ -31,7 +31,7 @@ from overlay.errors import CRSCheckError, SiteFileError
 if TYPE_CHECKING:
     import pyproj
 
-    from overlay.scan import RunResult
+    from overlay.job import RunResult
 
 VERDICTS = ("hollow", "sound")
 CSV_COLUMNS = ("x", "y", "verdict", "element", "date")

@@ -37,11 +37,16 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 def execute(args: argparse.Namespace) -> int:
     from overlay.calibration.calibrate import calibrate
     from overlay.calibration.report import output_names, write_all
-    from overlay.campaign import run_campaign
-    from overlay.outputs.write import check_not_inputs, check_out_dir, check_targets, run_inputs
-    from overlay.io.site import read_site
     from overlay.calibration.sounding import read_sounding
+    from overlay.campaign import run_campaign
+    from overlay.io.site import read_site
     from overlay.outputs.staging import Staged
+    from overlay.outputs.write import (
+        check_not_inputs,
+        check_out_dir,
+        check_targets,
+        run_inputs,
+    )
 
     site = read_site(args.site)
     if args.accept_misfit:

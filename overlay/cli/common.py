@@ -37,11 +37,11 @@ def add_output_options(p: argparse.ArgumentParser, default_out: str, *, overwrit
 
 
 def run_and_write(site: Site, out: Path, args: argparse.Namespace, *, overwrite: bool) -> int:
-    """Process the site (in parallel, cached), write outputs, print the report and the summary; exit code."""
+    """The main job (overlay.job.run) with progress bars, the failures, the report and the summary; exit code."""
     from tqdm import tqdm
 
-    from overlay.campaign import run_campaign, summary
-    from overlay.outputs.write import check_out_dir, picture_names, write_outputs
+    from overlay.campaign import summary
+    from overlay.job import RunOptions, run
     from overlay.outputs.report_text import run_report
 
     hide = True if args.quiet else None  # None: tqdm shows bars on a terminal only
@@ -49,31 +49,29 @@ def run_and_write(site: Site, out: Path, args: argparse.Namespace, *, overwrite:
     single = args.jobs <= 1 and not args.dask
     points = tqdm(total=0, desc="points", unit="pt", disable=hide if single else True, file=sys.stderr, position=1,
                   unit_scale=True)
+    drawn = tqdm(total=0, desc="pictures", unit="png", disable=True if hide or args.no_pictures else None,
+                 file=sys.stderr, position=2)
 
     def on_done(scan_id: str, how: str) -> None:
         scans.set_postfix_str(f"{scan_id} {how}")
         scans.update(1)
 
-    check_out_dir(out)
-    cache = None if args.no_cache else (args.cache or out / ".overlay-cache")
+    options = RunOptions(overwrite=overwrite, pictures=not args.no_pictures, pdf=args.pdf, jobs=args.jobs,
+                         dask_address=args.dask, cache_dir=None if args.no_cache else (args.cache or out / ".overlay-cache"),
+                         strict=args.strict, merge=not args.no_merge, replace_findings=args.replace_findings)
     try:
-        c = run_campaign(site, jobs=args.jobs, dask_address=args.dask, cache_dir=cache, strict=args.strict,
-                         on_done=on_done, progress=points.update if single else None)
+        c, written = run(site, out, options, on_done=on_done, progress=points.update if single else None,
+                         drawn=drawn.update)
     finally:
         points.close()
         scans.close()
+        drawn.close()
     for f in c.failures:  # one line per failed scan, as for any error, and its evidence below it
         print(f"overlay: error: {f.message}", file=sys.stderr)
         for line in f.details:
             print(f"    {line}", file=sys.stderr)
-    if c.result is None:
+    if written is None or c.result is None:
         return c.exit_code or 3
-    n_pictures = len(picture_names(c.result, "dxf" in c.result.site.formats)) if not args.no_pictures else 0
-    with tqdm(total=n_pictures, desc="pictures", unit="png", disable=True if hide or not n_pictures else None,
-              file=sys.stderr) as drawn:
-        written = write_outputs(c.result, out, overwrite=overwrite, pictures=not args.no_pictures, pdf=args.pdf,
-                                jobs=args.jobs, progress=drawn.update, merge=not args.no_merge,
-                                replace_findings=args.replace_findings)
     m = written.merge
     if args.quiet:
         for p in written.paths.values():

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import argparse
 from pathlib import Path
-
 from typing import TYPE_CHECKING
 
 if TYPE_CHECKING:  # the command's own imports wait until it runs: `overlay --help` starts at once
@@ -21,7 +20,8 @@ def summary(scan: Scan) -> str:
     """The bundle in a dozen lines."""
     import numpy as np
 
-    from overlay.scan import choose_gate, scan_grid
+    from overlay.signal.gate import choose_gate
+    from overlay.zones.grid import scan_grid
     unit = "m" if scan.kind == "surface" else "deg"
     lo, hi = scan.xy.min(axis=0), scan.xy.max(axis=0)
     lines = [

@@ -5,7 +5,6 @@ from __future__ import annotations
 import argparse
 
 
-
 def add_parser(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("exporters", help="list the installed output formats (exporter plugins)")
     p.set_defaults(func=execute)

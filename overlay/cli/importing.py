@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import argparse
-
 from pathlib import Path
 
 from overlay.errors import SiteFileError, UsageError
@@ -52,8 +51,8 @@ def _columns(args: argparse.Namespace) -> dict[str, str]:
 
 
 def execute(args: argparse.Namespace) -> int:
-    from overlay.io.bundle import read_bundle
     from overlay.importers import load_importers, write_bundle
+    from overlay.io.bundle import read_bundle
 
     usable, broken = load_importers()
     if args.list:

@@ -15,8 +15,8 @@ import warnings
 from typing import Sequence
 
 from overlay import __version__
-from overlay.errors import EXIT_UNEXPECTED, EXIT_USAGE, OverlayError, OverlayWarning
 from overlay.cli import calibrate, demo, describe, exporters, importing, run
+from overlay.errors import EXIT_UNEXPECTED, EXIT_USAGE, OverlayError, OverlayWarning
 
 COMMANDS = (run, calibrate, demo, describe, importing, exporters)
 

@@ -16,7 +16,7 @@ from typing import TYPE_CHECKING, Collection, Iterable, Protocol, runtime_checka
 from overlay.plugins import Broken, load_group
 
 if TYPE_CHECKING:
-    from overlay.scan import RunResult
+    from overlay.job import RunResult
 
 __all__ = ["GROUP", "Broken", "Exporter", "check_exporter", "load_exporters"]
 

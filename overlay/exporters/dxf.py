@@ -32,16 +32,16 @@ from ezdxf.document import Drawing
 from ezdxf.fonts import fonts
 from shapely.geometry import LineString, Polygon
 
-from overlay.outputs import palette, sheet
 from overlay.cautions import CAUTIONS
 from overlay.errors import OutputConflictError, SiteFileError
-from overlay.geometry.crs import UNIT_TO_M
+from overlay.outputs import palette, sheet
 from overlay.outputs.labels import Item, leader_end, place_labels
 from overlay.quantities import defects
+from overlay.units import LENGTH_TO_M
 
 if TYPE_CHECKING:
-    from overlay.scan import RunResult
     from overlay.io.site import DxfStyle
+    from overlay.job import RunResult
     from overlay.zones.zone import Zone
 
 APPID = "OVERLAY_ZONES"
@@ -112,7 +112,7 @@ def open_base(style: "DxfStyle", drawing_unit: str) -> tuple[Drawing, float]:
     if unit is None:
         hint = "unitless ($INSUNITS 0): say its unit with [dxf] base_unit" if code == 0 else f"$INSUNITS {code} is neither m nor mm"
         raise SiteFileError(f"base drawing unit unknown — {hint}", source=src, field="dxf.base")
-    return doc, UNIT_TO_M[drawing_unit] / UNIT_TO_M[unit]
+    return doc, LENGTH_TO_M[drawing_unit] / LENGTH_TO_M[unit]
 
 
 def clear_ours(doc: Drawing) -> None:

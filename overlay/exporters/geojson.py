@@ -23,7 +23,7 @@ from overlay.errors import SiteFileError
 from overlay.geometry.crs import reproject
 
 if TYPE_CHECKING:
-    from overlay.scan import RunResult
+    from overlay.job import RunResult
 
 DECIMALS = 8  # about a millimetre in longitude and latitude
 

@@ -23,12 +23,12 @@ import shapely
 from shapely.geometry import MultiPolygon, Point
 
 from overlay.assets import gpkg_sql
-from overlay.outputs import palette, styles
 from overlay.cautions import CAUTIONS
+from overlay.outputs import palette, styles
 from overlay.zones.zone import ZONE_FIELDS
 
 if TYPE_CHECKING:
-    from overlay.scan import RunResult
+    from overlay.job import RunResult
 
 GPKG_VERSION = "1.3"  # read without a warning by GDAL 3.6 / QGIS 3.22 (Debian 12) and every later release
 STYLE_NAME = "overlay default"

@@ -16,7 +16,7 @@ from typing import TYPE_CHECKING
 from overlay.quantities import COLUMNS, class_columns, quantity_rows
 
 if TYPE_CHECKING:
-    from overlay.scan import RunResult
+    from overlay.job import RunResult
 
 
 class QuantitiesCsvExporter:

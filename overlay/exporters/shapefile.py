@@ -27,7 +27,7 @@ from overlay.cautions import CAUTIONS
 from overlay.exporters.gpkg import FIELD_DOCS, layers, to_output_frame
 
 if TYPE_CHECKING:
-    from overlay.scan import RunResult
+    from overlay.job import RunResult
 
 MAX_NAME = 10
 MAX_TEXT = 254

@@ -18,8 +18,8 @@ from pyproj.exceptions import CRSError
 
 from overlay.errors import CRSCheckError, RegistrationWarning
 from overlay.geometry.transforms import Similarity
+from overlay.units import LENGTH_TO_M
 
-UNIT_TO_M = {"m": 1.0, "mm": 0.001}
 AREA_MARGIN_DEG = 3.0  # a site this far outside its CRS's area of use is a wrong CRS or placement, not an edge case
 
 
@@ -29,7 +29,7 @@ def from_placement(origin: tuple[float, float], bearing_deg: float, scale: float
     The bearing is measured clockwise from grid north; the drawing's +y axis
     is 90° counter-clockwise from +x (a right-handed drawing).
     """
-    k = scale * UNIT_TO_M[drawing_unit]
+    k = scale * LENGTH_TO_M[drawing_unit]
     beta = math.radians(bearing_deg)
     return Similarity(a=k * math.sin(beta), b=k * math.cos(beta), tx=origin[0], ty=origin[1])
 

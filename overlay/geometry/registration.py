@@ -17,13 +17,13 @@ from typing import Callable
 
 import numpy as np
 
-from overlay.signal.incidence import cos_incidence_from_head
-from overlay.io.bundle import Scan
 from overlay.errors import BundleWarning, RegistrationError
 from overlay.geometry.fits import MIN_POINTS, Fit, check_fit, fit_points
-from overlay.geometry.crs import UNIT_TO_M
-from overlay.io.site import ScanEntry, Site
 from overlay.geometry.transforms import Projective, Transform
+from overlay.io.bundle import Scan
+from overlay.io.site import ScanEntry, Site
+from overlay.signal.incidence import cos_incidence_from_head
+from overlay.units import LENGTH_TO_M
 
 
 @dataclass
@@ -116,7 +116,7 @@ def _control(scan: Scan, site: Site, src: str) -> tuple[list[str], list[tuple[fl
             continue
         if t.name in site.control_points and t.drawing is not None:
             gap = float(np.hypot(*np.subtract(site.control_points[t.name], t.drawing)))
-            if gap > site.tolerance_m / UNIT_TO_M[site.drawing_unit]:
+            if gap > site.tolerance_m / LENGTH_TO_M[site.drawing_unit]:
                 warnings.warn(f"{src}: target {t.name}: site file and bundle differ by {gap:.4f}; using the site file",
                               BundleWarning, stacklevel=3)
         names.append(t.name)
@@ -130,7 +130,7 @@ def register(scan: Scan, entry: ScanEntry, site: Site) -> Registration:
     src = str(scan.path)
     names, seen, drawing = _control(scan, site, src)
     model, frame = choose_model(scan, entry, site, len(names))
-    u = UNIT_TO_M[site.drawing_unit]
+    u = LENGTH_TO_M[site.drawing_unit]
     if frame == "surface":
         working: Callable[[np.ndarray], np.ndarray] = lambda xy: np.asarray(xy, dtype=np.float64)  # noqa: E731
         describe = f"{model} on surface coordinates"

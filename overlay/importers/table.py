@@ -14,11 +14,10 @@ from typing import Any
 
 import numpy as np
 
-from overlay.signal.energy import DEFAULT_PERCENTILE, reference_energy, ver_db
 from overlay.errors import BundleError
 from overlay.importers import Imported
-
-LENGTH = {"m": 1.0, "mm": 1e-3}
+from overlay.signal.energy import DEFAULT_PERCENTILE, reference_energy, ver_db
+from overlay.units import LENGTH_TO_M
 
 
 def _csv(path: Path) -> list[list[str]]:
@@ -67,7 +66,7 @@ class PointTableImporter:
                 raise BundleError(f"column {col!r} (mapped to {key}) not in the header ({', '.join(header)})",
                                   source=path, field="line 1")
             idx[key] = header.index(col)
-        k_len = LENGTH[options.get("length_unit", "m")]
+        k_len = LENGTH_TO_M[options.get("length_unit", "m")]
         n = len(body)
         ids, xy = [], np.zeros((n, 2))
         val = np.full(n, np.nan)

@@ -16,12 +16,11 @@ from typing import Any
 import numpy as np
 
 from overlay.errors import BundleError
-from overlay.zones.grid import infer_grid
 from overlay.importers import Imported
+from overlay.units import LENGTH_TO_M, VELOCITY_TO_MPS
+from overlay.zones.grid import infer_grid
 
 TIME, PSD = 1, 9
-VELOCITY = {"m/s": 1.0, "mm/s": 1e-3}
-LENGTH = {"m": 1.0, "mm": 1e-3}
 
 
 def _label(rec: dict) -> str:
@@ -81,7 +80,7 @@ class UffImporter:
             data = data if isinstance(data, list) else [data]
             sets += [(p, k, d) for k, d in enumerate(data)]
         direction = int(options.get("direction", 3))
-        length = LENGTH[options.get("length_unit", "m")]
+        length = LENGTH_TO_M[options.get("length_unit", "m")]
         nodes: dict[int, tuple[float, float]] = {}
         for p, k, d in sets:
             if d.get("type") in (15, 2411):
@@ -108,10 +107,10 @@ class UffImporter:
         label = labels.pop() if labels else ""
         psd_unit = label.replace("^2/hz", "").replace("2/hz", "").replace("²/hz", "").strip("() ")
         unit = unit_opt or (label if kind == TIME else psd_unit)
-        if unit not in VELOCITY:
+        if unit not in VELOCITY_TO_MPS:
             raise BundleError(f"ordinate unit {label!r} is not a velocity this importer knows (m/s, mm/s); "
                               "give --velocity-unit", source=funcs[0][0], field="dataset 58 R9 F6")
-        scale = VELOCITY[unit] if kind == TIME else VELOCITY[unit] ** 2
+        scale = VELOCITY_TO_MPS[unit] if kind == TIME else VELOCITY_TO_MPS[unit] ** 2
         spacing = {(int(d.get("abscissa_spacing", 1)), float(d["abscissa_min"]), float(d["abscissa_inc"]), len(d["data"]))
                    for _, _, d in funcs}
         if any(s[0] != 1 for s in spacing):

@@ -20,11 +20,10 @@ import numpy as np
 
 from overlay.errors import BundleError, BundleWarning
 from overlay.io.tomlio import Fields, load_toml
+from overlay.units import LENGTH_TO_M, VELOCITY_TO_MPS
 
 FORMAT = "scan-bundle/1"
 SCAN_ID = re.compile(r"^[A-Za-z0-9._-]+$")
-VELOCITY_TO_MPS = {"m/s": 1.0, "mm/s": 1e-3}
-LENGTH_TO_M = {"m": 1.0, "mm": 1e-3}
 KNOWN_COLUMNS = {"id", "row", "col", "x", "y", "ax", "ay", "valid", "signal_level", "ver_db", "peak_hz"}
 MAX_POINTS_BYTES = 256 << 20  # points.csv of 256 MiB holds ~4 million points; anything larger is not one scan
 MAX_SAMPLES = 1 << 24  # samples per record (5.5 minutes at 51.2 kHz)

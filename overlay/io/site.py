@@ -11,16 +11,16 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from overlay.io.bundle import target_names
 from overlay.assets.elements import is_geopackage_file
-from overlay.signal.energy import DEFAULT_PERCENTILE, REFERENCES
 from overlay.assets.merge import KEEP_BACKUPS, check_layer_name
+from overlay.errors import SiteFileError
+from overlay.io.bundle import target_names
+from overlay.io.tomlio import Fields, load_toml
 from overlay.quantities import area_field
+from overlay.signal.energy import DEFAULT_PERCENTILE, REFERENCES
+from overlay.units import LENGTH_TO_M
 from overlay.zones.plate import aci318_modulus_pa
 from overlay.zones.zone import Concrete
-from overlay.errors import SiteFileError
-from overlay.geometry.crs import UNIT_TO_M
-from overlay.io.tomlio import Fields, load_toml
 
 FORMAT = "overlay-site/1"
 DEFAULT_CLASSES = (("watch", 6.0), ("suspect", 10.0), ("probable", 15.0))
@@ -187,7 +187,7 @@ def read_site(path: str | Path) -> Site:
     s = _table(doc, "site", required=True)
     name = s.string("name", required=True) or ""
     structure = s.string("structure", "") or ""
-    unit = s.choice("drawing_unit", tuple(UNIT_TO_M), default="m")
+    unit = s.choice("drawing_unit", tuple(LENGTH_TO_M), default="m")
 
     reg = _table(doc, "registration")
     tolerance = reg.number("tolerance_m", TOLERANCE_M, positive=True) or TOLERANCE_M
@@ -442,7 +442,7 @@ def _dxf(doc: Fields, path: Path) -> DxfStyle:
                      "stay legible in print")
     style = DxfStyle(
         base=full,
-        base_unit=d.choice("base_unit", tuple(UNIT_TO_M), default="m") if d.has("base_unit") else None,
+        base_unit=d.choice("base_unit", tuple(LENGTH_TO_M), default="m") if d.has("base_unit") else None,
         prefix=prefix,
         colours=tuple(sorted(colours.items())),
         sheet=d.choice("sheet", SHEETS, default="A3"),

@@ -12,7 +12,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Sequence
 
-
 if TYPE_CHECKING:
     from overlay.io.site import Site
 

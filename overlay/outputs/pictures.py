@@ -19,10 +19,10 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 import shapely  # noqa: E402
-from matplotlib.patches import Polygon as MplPolygon  # noqa: E402
+from matplotlib.image import AxesImage  # noqa: E402
 from matplotlib.lines import Line2D  # noqa: E402
 from matplotlib.patches import Patch  # noqa: E402
-from matplotlib.image import AxesImage  # noqa: E402
+from matplotlib.patches import Polygon as MplPolygon  # noqa: E402
 from matplotlib.ticker import FuncFormatter  # noqa: E402
 from matplotlib.transforms import Affine2D  # noqa: E402
 from matplotlib.tri import Triangulation  # noqa: E402
@@ -30,8 +30,9 @@ from matplotlib.tri import Triangulation  # noqa: E402
 from overlay.outputs import palette  # noqa: E402
 
 if TYPE_CHECKING:
-    from overlay.scan import RunResult, ScanResult
+    from overlay.job import RunResult
     from overlay.quantities import Defect
+    from overlay.scan import ScanResult
     from overlay.zones.zone import Zone
 
 VER_CMAP = "cividis"
@@ -310,7 +311,6 @@ def field_map(result: "RunResult", scan: "ScanResult") -> bytes:
     assert ref is not None and ref.level_db is not None
     fig, ax = plt.subplots(figsize=PREVIEW_SIZE)
     fig.subplots_adjust(**MARGINS["preview"])
-    xy = scan.point_xy
     ok = scan.valid & np.isfinite(ref.level_db)
     level = ref.level_db - np.nanmedian(ref.level_db[ok])
     tri, values = _map_values(scan, level, ok)

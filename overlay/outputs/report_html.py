@@ -16,12 +16,29 @@ import base64
 import html
 from typing import TYPE_CHECKING, Callable, Sequence
 
-from overlay.quantities import asset_rows, class_columns, defect_rows, element_rows, zone_rows
-from overlay.outputs.report_text import ID_SCHEME, calibration_rows, calibration_summary, dims, fit_text, fmt, interval, recorded_calibration, \
-    settings_lines, span
+from overlay.outputs.report_text import (
+    ID_SCHEME,
+    calibration_rows,
+    calibration_summary,
+    dims,
+    fit_text,
+    fmt,
+    interval,
+    recorded_calibration,
+    settings_lines,
+    span,
+)
+from overlay.quantities import (
+    asset_rows,
+    class_columns,
+    defect_rows,
+    element_rows,
+    zone_rows,
+)
 
 if TYPE_CHECKING:
-    from overlay.scan import RunResult, ScanResult
+    from overlay.job import RunResult
+    from overlay.scan import ScanResult
 
 PAGE_LIMIT_SCANS = 20  # above this many scans the report is a folder of pages
 CSS = """

@@ -12,11 +12,18 @@ from collections import defaultdict
 from typing import TYPE_CHECKING, Iterable
 
 from overlay.cautions import cautions_text
-from overlay.quantities import asset_rows, class_columns, defect_rows, element_rows, zone_rows
+from overlay.quantities import (
+    asset_rows,
+    class_columns,
+    defect_rows,
+    element_rows,
+    zone_rows,
+)
 
 if TYPE_CHECKING:
-    from overlay.scan import RunResult, ScanResult
     from overlay.geometry.transforms import Similarity
+    from overlay.job import RunResult
+    from overlay.scan import ScanResult
 
 ID_SCHEME = ("zone ids are <scan id>.<class>.<nn>, numbered by position within the scan and class; a zone "
              "seen by several overlapping scans is united into one that keeps the first id with '+n' for n more "

@@ -14,23 +14,22 @@ import math
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, Callable, Sequence
 
+import numpy as np
+import shapely
 from ezdxf import const
 from ezdxf.enums import TextEntityAlignment
 from ezdxf.fonts import fonts
 
-import numpy as np
-import shapely
-
-from overlay.outputs import palette
 from overlay.cautions import CAUTIONS
+from overlay.outputs import palette
 from overlay.outputs.labels import Item, leader_end, place_labels
 from overlay.quantities import defect_rows, defects
 
 if TYPE_CHECKING:
     from ezdxf.document import Drawing
 
-    from overlay.scan import RunResult
     from overlay.io.site import DxfStyle
+    from overlay.job import RunResult
 
 SHEET_MM = {"A0": (1189.0, 841.0), "A1": (841.0, 594.0), "A2": (594.0, 420.0), "A3": (420.0, 297.0),
             "A4": (297.0, 210.0)}  # ISO 216, landscape

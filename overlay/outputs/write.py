@@ -16,14 +16,21 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, Callable, Sequence
 
-from overlay.errors import ExporterError, OutputConflictError, OutputWarning, OutputWriteError, OverlayError, UsageError
+from overlay.errors import (
+    ExporterError,
+    OutputConflictError,
+    OutputWarning,
+    OutputWriteError,
+    OverlayError,
+    UsageError,
+)
 from overlay.outputs.staging import Staged
 
 if TYPE_CHECKING:
-    from overlay.exporters import Exporter
     from overlay.assets.merge import MergeSummary
-    from overlay.scan import RunResult
+    from overlay.exporters import Exporter
     from overlay.io.site import Site
+    from overlay.job import RunResult
 
 
 def check_targets(paths: Sequence[Path], *, overwrite: bool) -> None:
@@ -266,7 +273,8 @@ def write_outputs(result: "RunResult", out_dir: Path, *, overwrite: bool = False
             paths["html"] = out_dir / f"{result.site.basename}-report.html"
     browser = find_pdf_printer() if (pdf or (pdf is None and not pages)) and pictures else None
     if pdf and browser is None:
-        raise UsageError("--pdf needs a headless Chromium (Debian package chromium); the HTML report prints from any browser")
+        raise UsageError("printing the report to PDF needs a headless Chromium (Debian package chromium); the HTML "
+                         "report prints from any browser")
     if browser:
         if pages:
             pages.update({n[:-5] + ".pdf": p.with_suffix(".pdf") for n, p in list(pages.items())})
@@ -303,8 +311,8 @@ def _write_staged(result: "RunResult", exporters: dict[str, "Exporter"], paths: 
                   pics: dict[str, Path], pages: dict[str, Path], staged: Staged, jobs: int,
                   progress: Callable[[int], None] | None, pdf: bool | None, browser: str | None) -> None:
     """Every output into its temporary file."""
-    from overlay.outputs.report_text import run_report
     from overlay.outputs.report_html import report_pages, site_report
+    from overlay.outputs.report_text import run_report
 
     for fmt, exporter in exporters.items():
         try:

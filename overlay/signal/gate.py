@@ -10,8 +10,12 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 from overlay.errors import SignalError
+
+if TYPE_CHECKING:
+    from overlay.io.bundle import Scan
 
 MIN_PERIODS = 3.0
 
@@ -97,3 +101,20 @@ def make_gate(
                 field=field,
             )
     return gate
+
+
+def choose_gate(scan: "Scan") -> Gate:
+    """The explicit gate if the bundle gives one, else the window derived from the geometry."""
+    assert scan.records is not None and scan.sample_rate_hz is not None and scan.band_hz is not None
+    src = str(scan.path / "scan.toml")
+    if scan.gate_s is not None:
+        window, how = scan.gate_s, "explicit gate_s"
+    else:
+        g = scan.geometry
+        if g.source_distance_m is None or g.head_distance_m is None:
+            raise SignalError(
+                "no gate: give [records].gate_s or [geometry].source_distance_m and head_distance_m", source=src, field="gate"
+            )
+        window = window_from_geometry(scan.trigger_s, g.source_distance_m, g.head_distance_m, g.air_temperature_c)
+        how = f"from geometry at {g.air_temperature_c:g} °C"
+    return make_gate(window, scan.sample_rate_hz, int(scan.records.shape[-1]), scan.band_hz[0], how, source=src)

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import shapely
@@ -11,6 +11,9 @@ import shapely.errors
 from shapely.geometry import Polygon
 
 from overlay.errors import BundleError
+
+if TYPE_CHECKING:
+    from overlay.io.bundle import Scan
 
 
 @dataclass(frozen=True)
@@ -234,3 +237,29 @@ class ScatterGrid:
     def spacing(self) -> float:
         """The points' own spacing (that of a regular grid of the same density), not the finer resampling step."""
         return self.step
+
+
+def scan_grid(scan: "Scan", xy: np.ndarray | None = None) -> Grid | ScatterGrid:
+    """The scan's grid on coordinates ``xy`` (default: the bundle's): from row/col, else a regular grid
+    inferred from the bundle's coordinates, else the points resampled onto one."""
+    xy = scan.xy if xy is None else xy
+    if scan.row is not None and scan.col is not None:
+        return grid_from_indices(xy, scan.row, scan.col)
+    regular = infer_grid(scan.xy)
+    if regular is None:
+        return ScatterGrid(xy)
+    r, c = np.nonzero(regular.index >= 0)
+    rows = np.empty(scan.n_points, dtype=np.int64)
+    cols = np.empty(scan.n_points, dtype=np.int64)
+    rows[regular.index[r, c]], cols[regular.index[r, c]] = r, c
+    return grid_from_indices(xy, rows, cols)
+
+
+def grid_positions(grid: Grid | ScatterGrid, n: int) -> np.ndarray | None:
+    """Each point's (row, column) on its grid (-1 where it has none), for pictures drawn cell by cell."""
+    if isinstance(grid, ScatterGrid):
+        return None
+    rc = np.full((n, 2), -1, dtype=np.int64)
+    r, c = np.nonzero(grid.index >= 0)
+    rc[grid.index[r, c]] = np.column_stack([r, c])
+    return rc

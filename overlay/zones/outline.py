@@ -29,7 +29,11 @@ import shapely
 import shapely.affinity
 from shapely.geometry import Polygon
 
-from overlay.zones.plate import clamped_lambda, clamped_mode_shape, simply_supported_lambda
+from overlay.zones.plate import (
+    clamped_lambda,
+    clamped_mode_shape,
+    simply_supported_lambda,
+)
 
 SHAPES = ("ellipse", "rectangle")
 MISFIT_MAX = 2.0  # above this the model does not explain the zone (set from the validation set, docs/zones.md:

@@ -29,7 +29,7 @@ import shapely.affinity
 from shapely.geometry import Polygon
 
 from overlay.zones.outline import clamped_lambda2_eq, simply_supported_lambda2_eq
-from overlay.zones.plate import clamped_mode_shape, plate_thickness
+from overlay.zones.plate import aci318_modulus_pa, clamped_mode_shape, plate_thickness
 
 SUPPORT_POINTS = 4.0
 CONTRAST_DB = 3.0
@@ -52,7 +52,7 @@ ZONE_FIELDS = (
 class Concrete:
     """Material of the cover over a delamination; defaults: normal-weight concrete, f'c 30 MPa by ACI 318."""
 
-    modulus_pa: float = 4700.0 * math.sqrt(30.0) * 1e6
+    modulus_pa: float = field(default_factory=lambda: aci318_modulus_pa(30.0))
     density: float = 2400.0
     poisson: float = 0.2
 
