@@ -27,7 +27,15 @@ from pathlib import Path
 from typing import Any, Callable, Iterable
 
 from overlay import __version__, cache
-from overlay.errors import CacheWarning, OverlayError, ScanFailedError, Seen, UsageError, collected_warnings, warn_again
+from overlay.errors import (
+    CacheWarning,
+    OverlayError,
+    ScanFailedError,
+    Seen,
+    UsageError,
+    collected_warnings,
+    warn_again,
+)
 from overlay.io.site import ScanEntry, Site
 from overlay.job import RunResult, finish_site, now_utc
 from overlay.outputs.staging import part_path, remove_stale_parts

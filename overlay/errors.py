@@ -12,7 +12,6 @@ import warnings
 from pathlib import Path
 from typing import Iterator, Sequence
 
-EXIT_OK = 0
 EXIT_UNEXPECTED = 1
 EXIT_USAGE = 2
 EXIT_BAD_INPUT = 3

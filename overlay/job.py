@@ -22,7 +22,14 @@ from overlay.assets.elements import (
     split_by_assets,
 )
 from overlay.cautions import CAUTIONS
-from overlay.errors import BundleError, RegistrationError, Seen, SiteFileError, collected_warnings, warn_again
+from overlay.errors import (
+    BundleError,
+    RegistrationError,
+    Seen,
+    SiteFileError,
+    collected_warnings,
+    warn_again,
+)
 from overlay.geometry.crs import (
     check_map_crs,
     from_placement,

@@ -6,16 +6,9 @@ import numpy as np
 import pytest
 
 from overlay.signal.incidence import (
-    cos_incidence_from_angles,
     cos_incidence_from_head,
     normal_energy,
 )
-
-
-def test_angles_on_boresight_and_off() -> None:
-    # (0, 0) is normal incidence; (30°, 0) gives cos 30° = 0.8660; (30°, 30°): 1/sqrt(1 + 2·tan²30°) = 0.7746
-    c = cos_incidence_from_angles(np.array([[0.0, 0.0], [30.0, 0.0], [30.0, 30.0]]))
-    np.testing.assert_allclose(c, [1.0, 0.866025, 0.774597], atol=1e-6)
 
 
 def test_head_standoff() -> None:

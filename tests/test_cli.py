@@ -121,6 +121,10 @@ def test_describe(bundle: Path, capsys: pytest.CaptureFixture) -> None:
     assert main(["describe", str(bundle)]) == 0
     out = capsys.readouterr().out
     assert "scan S-T1" in out and "6 rows x 8 cols" in out and "targets     4" in out and "gate" in out
+    manifest = bundle / "scan.toml"
+    manifest.write_text(manifest.read_text().replace('element = "EL-1"', 'element = "EL-1"\nnote = "west bay, wet patch"'))
+    assert main(["describe", str(bundle)]) == 0
+    assert "note        west bay, wet patch" in capsys.readouterr().out  # the bundle's own note is shown
 
 
 def test_usage_errors_exit_2(capsys: pytest.CaptureFixture) -> None:

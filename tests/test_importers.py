@@ -218,3 +218,26 @@ def test_curvilinear_grid_recovered_from_a_declared_shape(tmp_path: Path) -> Non
     assert shaped.row.tolist() == rr.ravel().tolist() and shaped.col.tolist() == cc.ravel().tolist()
     with pytest.raises(BundleError, match="do not form a 8 x 6 grid"):
         UffImporter().read([path], {"grid_shape": (8, 6)})
+
+
+def test_each_importer_brings_its_own_options_to_the_command_line(tmp_path: Path, capsys: pytest.CaptureFixture) -> None:
+    from overlay.cli.main import main
+
+    assert main(["import", "uff", "--help"]) == 0
+    out = capsys.readouterr().out
+    assert "--grid-shape" in out and "--direction" in out and "--map" not in out and "--out" in out
+    assert main(["import", "point-table", "--help"]) == 0
+    out = capsys.readouterr().out
+    assert "--map" in out and "--mapping" in out and "--grid-shape" not in out
+    csv_path = tmp_path / "pts.csv"
+    rows = ["PointID,X_mm,Y_mm,E"] + [f"p{k},{50 * (k % 5)},{50 * (k // 5)},{1.0 if k != 12 else 100.0}" for k in range(25)]
+    csv_path.write_text("\n".join(rows) + "\n")
+    mapping = tmp_path / "map.toml"
+    mapping.write_text('[columns]\nid = "PointID"\nx = "X_mm"\ny = "Y_mm"\n')
+    assert main(["import", "point-table", str(csv_path), "--out", str(tmp_path / "b"), "--mapping", str(mapping),
+                 "--map", "energy=E", "--length-unit", "mm"]) == 0
+    assert read_bundle(tmp_path / "b").ver_db[12] == pytest.approx(20.0)  # hand-worked as above
+    assert main(["import", "point-table", str(csv_path), "--out", str(tmp_path / "c"), "--map", "energy"]) == 2
+    assert "--map wants KEY=COLUMN" in capsys.readouterr().err
+    assert main(["import", "ver-matrix", "--help"]) == 0
+    assert "--spacing" in capsys.readouterr().out

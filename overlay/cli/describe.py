@@ -30,6 +30,8 @@ def summary(scan: Scan) -> str:
         f"  coordinates {scan.kind}, x {lo[0]:.3f}..{hi[0]:.3f} {unit}, y {lo[1]:.3f}..{hi[1]:.3f} {unit}",
         f"  points      {scan.n_points}, flagged invalid {int((~scan.valid).sum())}",
     ]
+    if scan.note:
+        lines.insert(1, f"  note        {scan.note}")
     if scan.has_grid or scan.row is None:
         try:
             g = scan_grid(scan)

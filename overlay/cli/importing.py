@@ -1,53 +1,49 @@
-"""``overlay import FORMAT FILE... --out BUNDLE``: instrument exports → a scan bundle, checked."""
+"""``overlay import FORMAT FILE... --out BUNDLE``: instrument exports → a scan bundle, checked.
+
+The options every importer shares are here; an importer adds its own (``add_arguments``), so
+``overlay import uff --help`` lists the UFF options and a third-party importer brings its own.
+"""
 
 from __future__ import annotations
 
 import argparse
 from pathlib import Path
 
-from overlay.errors import SiteFileError, UsageError
-from overlay.io.tomlio import tomllib
+from overlay.errors import UsageError
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
-    p = sub.add_parser("import", help="turn instrument exports (UFF, CSV tables) into a scan bundle",
+    p = sub.add_parser("import", help="turn instrument exports (UFF, CSV tables) into a scan bundle", add_help=False,
                        description="Read one or more exported files with an importer plugin (see --list) and write a "
-                       "scan-bundle/1 folder; prints what was found and what had to be assumed.")
-    p.add_argument("format", nargs="?", metavar="FORMAT", help="importer name: uff, point-table, ver-matrix, ...")
-    p.add_argument("files", nargs="*", type=Path, metavar="FILE")
-    p.add_argument("--out", type=Path, metavar="BUNDLE", help="bundle folder to write")
-    p.add_argument("--overwrite", action="store_true", help="replace an existing bundle folder")
+                       "scan-bundle/1 folder; prints what was found and what had to be assumed. "
+                       "`overlay import FORMAT --help` lists that importer's own options.")
+    p.add_argument("-h", "--help", action="store_true", help="show this help (with FORMAT: that importer's options)")
     p.add_argument("--list", action="store_true", help="list the installed importers, broken ones included")
-    p.add_argument("--scan-id", help="scan id (default: the first file's name)")
-    p.add_argument("--band", nargs=2, type=float, metavar=("LOW", "HIGH"), help="analysis band, Hz (default 400 8000)")
-    p.add_argument("--gate", nargs=2, type=float, metavar=("START", "END"), help="gate in seconds (time records)")
-    p.add_argument("--direction", type=int, default=3, help="UFF response direction normal to the surface (default 3 = Z)")
-    p.add_argument("--grid-shape", nargs=2, type=int, metavar=("ROWS", "COLS"),
-                   help="UFF: the nodes, in node-number order, fill a (curvilinear) grid row by row; checked")
-    p.add_argument("--length-unit", choices=("m", "mm"), help="unit of the input coordinates (default m, said if assumed)")
-    p.add_argument("--velocity-unit", choices=("m/s", "mm/s"), help="when the file does not say its velocity unit")
-    p.add_argument("--map", action="append", default=[], metavar="KEY=COLUMN",
-                   help="point-table: column for id, x, y, ver_db or energy, peak_hz (repeatable)")
-    p.add_argument("--mapping", type=Path, metavar="FILE.toml", help="point-table: [columns] key = \"COLUMN\" in a file")
-    p.add_argument("--origin", nargs=2, type=float, metavar=("X", "Y"), help="ver-matrix: position of the first value, m")
-    p.add_argument("--spacing", type=float, help="ver-matrix: grid spacing, m")
-    p.add_argument("--allow-partial", action="store_true", help="import the good records of a partly bad file, report the rest")
-    p.set_defaults(func=execute)
+    p.add_argument("format", nargs="?", metavar="FORMAT", help="importer name: uff, point-table, ver-matrix, ...")
+    p.add_argument("rest", nargs=argparse.REMAINDER, metavar="FILE ... --out BUNDLE [options]")
+    p.set_defaults(func=execute, usage=p.format_help)
 
 
-def _columns(args: argparse.Namespace) -> dict[str, str]:
-    cols: dict[str, str] = {}
-    if args.mapping:
-        try:
-            cols.update(tomllib.loads(args.mapping.read_text()).get("columns", {}))
-        except (OSError, tomllib.TOMLDecodeError) as exc:
-            raise SiteFileError(f"cannot read the mapping file ({exc})", source=args.mapping) from exc
-    for item in args.map:
-        if "=" not in item:
-            raise UsageError(f"--map wants KEY=COLUMN, got {item!r}")
-        k, v = item.split("=", 1)
-        cols[k.strip()] = v.strip()
-    return cols
+def common_parser(fmt: str) -> argparse.ArgumentParser:
+    """The options every importer takes; the importer adds its own."""
+    p = argparse.ArgumentParser(prog=f"overlay import {fmt}",
+                                description=f"Read exported files with the importer {fmt!r} and write a checked "
+                                "scan-bundle/1 folder.")
+    p.add_argument("files", nargs="+", type=Path, metavar="FILE")
+    p.add_argument("--out", type=Path, metavar="BUNDLE", required=True, help="bundle folder to write")
+    p.add_argument("--overwrite", action="store_true", help="replace an existing bundle folder")
+    p.add_argument("--scan-id", dest="scan_id", help="scan id (default: the first file's name)")
+    p.add_argument("--band", dest="band_hz", nargs=2, type=float, metavar=("LOW", "HIGH"),
+                   help="analysis band, Hz (default 400 8000)")
+    p.add_argument("--gate", dest="gate_s", nargs=2, type=float, metavar=("START", "END"),
+                   help="gate in seconds (time records)")
+    p.add_argument("--length-unit", dest="length_unit", choices=("m", "mm"),
+                   help="unit of the input coordinates (default m, said if assumed)")
+    p.add_argument("--velocity-unit", dest="velocity_unit", choices=("m/s", "mm/s"),
+                   help="when the file does not say its velocity unit")
+    p.add_argument("--allow-partial", dest="allow_partial", action="store_true",
+                   help="import the good records of a partly bad file, report the rest")
+    return p
 
 
 def execute(args: argparse.Namespace) -> int:
@@ -61,21 +57,28 @@ def execute(args: argparse.Namespace) -> int:
         for b in broken:
             print(f"{b.name:<14} BROKEN ({b.target}): {b.problem}")
         return 0
-    if not args.format or not args.files or not args.out:
+    if args.format is None:
+        if args.help:
+            print(args.usage())
+            return 0
         raise UsageError("give FORMAT, at least one FILE and --out BUNDLE (or --list)")
     if args.format not in usable:
         why = next((b.problem for b in broken if b.name == args.format), None)
         raise UsageError(f"importer {args.format!r} is {'broken: ' + why if why else 'unknown'}; "
                          f"available: {', '.join(sorted(usable))}")
-    options = {k: v for k, v in {
-        "scan_id": args.scan_id, "band_hz": tuple(args.band) if args.band else None,
-        "gate_s": tuple(args.gate) if args.gate else None, "direction": args.direction,
-        "grid_shape": tuple(args.grid_shape) if args.grid_shape else None,
-        "length_unit": args.length_unit, "velocity_unit": args.velocity_unit, "columns": _columns(args),
-        "origin": tuple(args.origin) if args.origin else None, "spacing": args.spacing,
-        "allow_partial": args.allow_partial}.items() if v not in (None, {}, False)}
-    scan = usable[args.format].read(list(args.files), options)
-    folder = write_bundle(scan, args.out, overwrite=args.overwrite)
+    importer = usable[args.format]
+    parser = common_parser(args.format)
+    if hasattr(importer, "add_arguments"):
+        importer.add_arguments(parser.add_argument_group(f"{args.format} options"))
+    if args.help or {"-h", "--help"} & set(args.rest):
+        parser.print_help()
+        return 0
+    ns = parser.parse_args(args.rest)
+    skip = {"files", "out", "overwrite"}
+    options = {k: tuple(v) if isinstance(v, list) else v for k, v in vars(ns).items()
+               if k not in skip and v not in (None, {}, False, [])}
+    scan = importer.read(list(ns.files), options)
+    folder = write_bundle(scan, ns.out, overwrite=ns.overwrite)
     try:
         read_bundle(folder)  # the same checks as for any bundle
     except Exception:

@@ -78,13 +78,6 @@ def check_map_crs(crs: pyproj.CRS, site_xy: np.ndarray, *, source: str | None = 
         )
 
 
-def transform_xy(xy: np.ndarray, src: Any, dst: Any) -> np.ndarray:
-    """Coordinates from one CRS to another, x/y (easting/northing, lon/lat) order always."""
-    t = pyproj.Transformer.from_crs(to_crs(src), to_crs(dst), always_xy=True)
-    x, y = t.transform(np.asarray(xy)[..., 0], np.asarray(xy)[..., 1], errcheck=True)
-    return np.stack([x, y], axis=-1)
-
-
 def crs_transformer(src: Any, dst: Any, lonlat: tuple[float, float] | None = None, *,
                     source: str | None = None) -> tuple[pyproj.Transformer, float]:
     """The transformation from ``src`` to ``dst`` that PROJ rates best for the site, and its accuracy (m).

@@ -64,15 +64,6 @@ class Similarity(_Plane):
         a, b = self.a / k, -self.b / k
         return Similarity(a=a, b=b, tx=-(a * self.tx - b * self.ty), ty=-(b * self.tx + a * self.ty))
 
-    def then(self, other: "Similarity") -> "Similarity":
-        """This transform followed by ``other``."""
-        return Similarity(
-            a=other.a * self.a - other.b * self.b,
-            b=other.b * self.a + other.a * self.b,
-            tx=other.a * self.tx - other.b * self.ty + other.tx,
-            ty=other.b * self.tx + other.a * self.ty + other.ty,
-        )
-
     def params(self) -> dict[str, float]:
         return {"a": self.a, "b": self.b, "tx": self.tx, "ty": self.ty, "scale": self.scale,
                 "rotation_deg": self.rotation_deg}

@@ -55,7 +55,10 @@ class Importer(Protocol):
     description: str
 
     def read(self, paths: list[Path], options: dict[str, Any]) -> Imported:
-        """Read the input files into one scan; raise BundleError (exit 3) on bad input."""
+        """Read the input files into one scan; raise BundleError (exit 3) on bad input.
+
+        ``options``: the command's common options and, when the importer has an ``add_arguments(parser)``
+        method (optional), the options it added there, each under its argument's ``dest``."""
 
 
 def _check(obj: object, name: str) -> str | None:

@@ -8,13 +8,14 @@ are turned into VER against the 10th percentile of the valid energies (said in t
 
 from __future__ import annotations
 
+import argparse
 import csv
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
-from overlay.errors import BundleError
+from overlay.errors import BundleError, SiteFileError, UsageError
 from overlay.importers import Imported
 from overlay.signal.energy import DEFAULT_PERCENTILE, reference_energy, ver_db
 from overlay.units import LENGTH_TO_M
@@ -50,6 +51,13 @@ def _float(s: str, path: Path, line: int, col: str) -> float:
 class PointTableImporter:
     name = "point-table"
     description = "CSV of per-point values (id, x, y, VER or band energy, optional peak frequency), columns mapped"
+
+    def add_arguments(self, parser: Any) -> None:
+        """The point table's own command-line options: which column holds what."""
+        parser.add_argument("--map", dest="columns", action=_ColumnMap, metavar="KEY=COLUMN",
+                            help="column for id, x, y, ver_db or energy, peak_hz (repeatable)")
+        parser.add_argument("--mapping", dest="columns", action=_ColumnFile, metavar="FILE.toml",
+                            help='[columns] key = "COLUMN" in a file')
 
     def read(self, paths: list[Path], options: dict[str, Any]) -> Imported:
         path = paths[0]
@@ -113,6 +121,11 @@ class MatrixTableImporter:
     name = "ver-matrix"
     description = "CSV matrix of VER values (dB) on a regular grid, with --origin and --spacing"
 
+    def add_arguments(self, parser: Any) -> None:
+        """The matrix's own command-line options: where it sits and how far apart its values are."""
+        parser.add_argument("--origin", nargs=2, type=float, metavar=("X", "Y"), help="position of the first value, m")
+        parser.add_argument("--spacing", type=float, help="grid spacing, m")
+
     def read(self, paths: list[Path], options: dict[str, Any]) -> Imported:
         path = paths[0]
         rows = _csv(path)
@@ -144,3 +157,29 @@ class MatrixTableImporter:
         if "origin" not in options:
             out.assumed.append("origin (0, 0): first value of the first line at x = 0, y = 0; lines along +y")
         return out
+
+
+class _ColumnMap(argparse.Action):
+    """``--map KEY=COLUMN``, repeatable, into one dict of columns."""
+
+    def __call__(self, parser: Any, namespace: Any, value: Any, option_string: str | None = None) -> None:
+        if "=" not in value:
+            raise UsageError(f"--map wants KEY=COLUMN, got {value!r}")
+        k, v = value.split("=", 1)
+        cols = dict(getattr(namespace, self.dest, None) or {})
+        cols[k.strip()] = v.strip()
+        setattr(namespace, self.dest, cols)
+
+
+class _ColumnFile(argparse.Action):
+    """``--mapping FILE.toml`` with ``[columns] key = "COLUMN"``; --map given after it wins."""
+
+    def __call__(self, parser: Any, namespace: Any, value: Any, option_string: str | None = None) -> None:
+        from overlay.io.tomlio import tomllib
+
+        path = Path(value)
+        try:
+            found = tomllib.loads(path.read_text()).get("columns", {})
+        except (OSError, tomllib.TOMLDecodeError) as exc:
+            raise SiteFileError(f"cannot read the mapping file ({exc})", source=path) from exc
+        setattr(namespace, self.dest, {**found, **(getattr(namespace, self.dest, None) or {})})

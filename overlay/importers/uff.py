@@ -66,6 +66,13 @@ class UffImporter:
     name = "uff"
     description = "Universal File Format: nodes (datasets 15, 2411) and function data (dataset 58), via pyuff"
 
+    def add_arguments(self, parser: Any) -> None:
+        """The UFF importer's own command-line options (``overlay import uff --help``)."""
+        parser.add_argument("--direction", type=int, default=3,
+                            help="response direction normal to the surface (default 3 = Z)")
+        parser.add_argument("--grid-shape", dest="grid_shape", nargs=2, type=int, metavar=("ROWS", "COLS"),
+                            help="the nodes, in node-number order, fill a (curvilinear) grid row by row; checked")
+
     def read(self, paths: list[Path], options: dict[str, Any]) -> Imported:
         import pyuff
 

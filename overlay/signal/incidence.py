@@ -11,12 +11,6 @@ from __future__ import annotations
 import numpy as np
 
 
-def cos_incidence_from_angles(angles_deg: np.ndarray) -> np.ndarray:
-    """cos θ for mirror angles (ax, ay) in degrees onto a plane normal to the boresight (pinhole model)."""
-    t = np.tan(np.radians(np.asarray(angles_deg, dtype=np.float64)))
-    return 1.0 / np.sqrt(1.0 + t[..., 0] ** 2 + t[..., 1] ** 2)
-
-
 def cos_incidence_from_head(xy: np.ndarray, head_xy: tuple[float, float], standoff_m: float) -> np.ndarray:
     """cos θ for surface points ``xy`` (m) seen from a head at ``standoff_m`` above ``head_xy`` on the surface."""
     r = np.hypot(xy[..., 0] - head_xy[0], xy[..., 1] - head_xy[1])

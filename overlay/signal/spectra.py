@@ -1,7 +1,7 @@
 """Per-point spectra: PSD, band energy, peak frequency and in-band SNR.
 
 The PSD is the Hann-windowed one-sided periodogram in density scaling, the
-same estimate as ``scipy.signal.periodogram(x, fs, window="hann")``; its
+same estimate as ``scipy.signal.periodogram(x, fs, window="hann")`` on the band's bins; its
 integral over a band is the mean-square velocity in that band (Parseval).
 Records are read from the memory map a chunk of points at a time, in float32,
 with one batched FFT per chunk and no per-point Python loop.
@@ -42,29 +42,6 @@ def hann(n: int) -> np.ndarray:
     """The periodic Hann window, 0.5 − 0.5·cos(2πk/n), as scipy.signal.get_window("hann", n) gives it
     for spectral estimates (written out: importing scipy.signal cost a third of a second per run)."""
     return 0.5 - 0.5 * np.cos(2.0 * np.pi * np.arange(n) / n) if n > 1 else np.ones(n)
-
-
-def periodogram(x: np.ndarray, fs: float) -> tuple[np.ndarray, np.ndarray]:
-    """One-sided Hann periodogram density of the last axis, mean removed.
-
-    Same convention as ``scipy.signal.periodogram(x, fs, window="hann")``.
-    """
-    x = np.asarray(x)
-    n = x.shape[-1]
-    w = hann(n).astype(x.dtype if x.dtype == np.float32 else np.float64)
-    spec = _power(x, w)
-    spec *= _density_scale(w, fs, n)
-    return scipy.fft.rfftfreq(n, 1.0 / fs), spec
-
-
-def _power(x: np.ndarray, w: np.ndarray) -> np.ndarray:
-    """|FFT|^2 of the windowed, mean-removed last axis, one-sided doubling applied."""
-    n = x.shape[-1]
-    xw = (x - x.mean(axis=-1, keepdims=True)) * w
-    spec = scipy.fft.rfft(xw, axis=-1, workers=os.cpu_count() or 1)
-    p = spec.real**2 + spec.imag**2
-    p[..., 1 : (n + 1) // 2] *= 2.0  # DC and (for even n) Nyquist are not doubled
-    return p
 
 
 def _density_scale(w: np.ndarray, fs: float, n: int) -> float:
