@@ -105,7 +105,7 @@ def is_equivalent(module: str, diff: str, known: list[dict[str, str]]) -> str | 
 
 
 def run_module(module: str, budget: float, jobs: int, mutmut: str) -> dict[str, object]:
-    with tempfile.TemporaryDirectory(prefix=f"mutate-{module}-") as tmp:
+    with tempfile.TemporaryDirectory(prefix=f"mutate-{module.replace('/', '-')}-") as tmp:
         work = Path(tmp)
         copy_repo(work)
         configure(work, module, CORE[module])

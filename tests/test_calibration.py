@@ -251,3 +251,32 @@ def test_a_run_records_the_calibration_its_levels_come_from(demo_cal: dict, tmp_
     assert "Agreement with sounding" in html and "ROC curve" in html
     (site_dir / cal.name).write_text("{}")  # a named calibration that is not one: refused before the run
     assert main(["run", str(site_dir / "site.toml"), "--out", str(tmp_path / "o2"), "--no-merge"]) == 3
+
+
+def test_levels_reaching_a_sensitivity_or_a_specificity() -> None:
+    from overlay.calibration.agreement import reaching_sensitivity, reaching_specificity
+
+    levels = [2.0, 4.0, 6.0, 8.0]
+    # sensitivity 10/10, 9/10, 8/10, 5/10; specificity 5/10, 9/10, 19/20 (0.95), 1
+    tables = [Counts(10, 5, 0, 5), Counts(9, 1, 1, 9), Counts(8, 1, 2, 19), Counts(5, 0, 5, 10)]
+    assert reaching_sensitivity(levels, tables, 0.9) == 1  # the highest level still at 0.9 (0.9 counts)
+    assert reaching_sensitivity(levels, tables, 1.0) == 0
+    assert reaching_sensitivity(levels, tables[1:], 0.95) is None
+    assert reaching_specificity(levels, tables, 0.95) == 2  # the lowest level at 0.95 (0.95 counts)
+    assert reaching_specificity(levels, tables, 0.99) == 3
+    assert reaching_specificity(levels[:2], tables[:2], 0.95) is None
+
+
+def test_the_bootstrap_interval_is_the_same_every_run_and_narrow_when_the_data_are_clear() -> None:
+    from overlay.calibration.agreement import bootstrap_level
+
+    levels = [float(v) for v in np.arange(2.0, 20.01, 0.5)]
+    ver = np.r_[np.linspace(8, 12, 20), np.full(40, 3.0)]  # every sound point reads 3 dB
+    hollow = np.r_[np.ones(20, bool), np.zeros(40, bool)].astype(int)  # as 0/1: read as booleans
+    assert bootstrap_level(levels, ver, hollow) == (3.5, 3.5)  # every resample separates at the same level
+    rng = np.random.default_rng(9)
+    noisy = np.r_[rng.normal(9, 2, 40), rng.normal(3, 2, 80)]
+    truth = np.r_[np.ones(40, bool), np.zeros(80, bool)]
+    a, b = bootstrap_level(levels, noisy, truth), bootstrap_level(levels, noisy, truth)
+    assert a == b and a[0] < a[1]  # a fixed seed: the same interval on every run; real spread when the data overlap
+    assert bootstrap_level(levels, noisy[:3], np.zeros(3, bool)) != bootstrap_level(levels, noisy, truth)
