@@ -47,6 +47,7 @@ from overlay.zones.zone import Zone
 
 if TYPE_CHECKING:
     from overlay.campaign import CampaignResult
+    from overlay.view import ResultView
     from overlay.outputs.write import Written
 
 
@@ -73,6 +74,12 @@ class RunResult:
     def zones(self) -> list[Zone]:
         """The site's zones: overlapping zones of different scans united (overlay.zones.mosaic)."""
         return self.mosaic
+
+    def view(self) -> "ResultView":
+        """The run as frozen, versioned records: what a third-party exporter may rely on (overlay.view)."""
+        from overlay.view import result_view
+
+        return result_view(self)
 
     @property
     def unit_m(self) -> float:

@@ -15,7 +15,8 @@ from shapely.geometry import LinearRing
 from overlay.cautions import CAUTIONS
 from overlay.exporters import GROUP, load_exporters
 from overlay.exporters.geojson import GeoJsonExporter
-from overlay.geometry.crs import transform_xy
+
+from .test_frames import transform_xy
 
 EXAMPLE = Path(__file__).resolve().parents[1] / "docs" / "examples" / "overlay-zone-table"
 
@@ -68,3 +69,23 @@ def test_documented_third_party_exporter_loads_as_a_plugin(demo: dict, tmp_path:
     text = out.read_text()
     assert CAUTIONS[0] in text and all(z.zone_id in text for z in demo["result"].zones)
     assert 'zone-table = "overlay_zone_table:ZoneTableExporter"' in (EXAMPLE / "pyproject.toml").read_text()
+
+
+def test_the_plugin_view_is_frozen_versioned_and_complete(demo: dict) -> None:
+    # what a third-party exporter may rely on: the same numbers as the working data, read-only
+    import dataclasses as dc
+
+    from overlay.exporters.gpkg import ZONE_KINDS
+    from overlay.view import VERSION
+
+    result = demo["result"]
+    run = result.view()
+    assert run.version == VERSION == "overlay-result/1"
+    assert [z.zone_id for z in run.zones] == [z.zone_id for z in result.zones]
+    for v, z in zip(run.zones, result.zones):
+        assert v.area_m2 == z.area_m2 and v.outline.equals(z.defect) and set(v.record) == set(ZONE_KINDS)
+    with pytest.raises(dc.FrozenInstanceError):
+        run.zones[0].area_m2 = 0.0  # type: ignore[misc]
+    with pytest.raises(TypeError):
+        run.zones[0].record["area_m2"] = 0.0  # type: ignore[index]
+    assert run.crs_wkt is not None and run.to_map is result.to_map and run.cautions == tuple(result.cautions)
