@@ -45,7 +45,7 @@ class ScanResult:
     incidence: str
     fit: Fit
     fit_passed: bool
-    fit_describe: str
+    fit_summary: str
     spacing_m: float
     extent: Polygon
     point_ids: np.ndarray
@@ -115,7 +115,7 @@ def process_scan(
     return ScanResult(
         scan_id=scan.scan_id, element=element, surveyed=surveyed, kind=scan.kind, payload=scan.payload,
         n_points=scan.n_points, gate=sig.gate, reference=sig.reference, incidence=sig.incidence, fit=reg.fit,
-        fit_passed=reg.passed, fit_describe=reg.describe, spacing_m=spacing_d * u, extent=extent,
+        fit_passed=reg.passed, fit_summary=reg.describe, spacing_m=spacing_d * u, extent=extent,
         point_ids=scan.point_ids, point_xy=point_xy, energy=sig.energy, ver_db=sig.ver, peak_hz=sig.peak,
         snr_db=sig.snr, incidence_deg=incidence_deg, valid=sig.valid, invalid_reason=sig.reason, targets=reg.targets,
         zones=zones, band_freqs=band_freqs, healthy_spectrum=healthy, grid_rc=grid_positions(grid, scan.n_points),

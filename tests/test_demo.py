@@ -165,9 +165,9 @@ def test_zones_land_within_a_quarter_spacing_and_the_angle_scan_is_projective(de
             c = z.contour.centroid
             assert np.hypot(c.x - d["center"][0], c.y - d["center"][1]) < quarter, d["id"]
     oblique = next(s for s in demo["result"].scans if s.kind == "angles")
-    assert oblique.fit.model == "projective" and "tangents" in oblique.fit_describe
+    assert oblique.fit.model == "projective" and "tangents" in oblique.fit_summary
     assert oblique.incidence.startswith("applied") and np.nanmax(oblique.incidence_deg) > 35
-    assert np.isfinite(oblique.fit.loo).all()
+    assert np.isfinite(oblique.fit.leave_one_out).all()
     assert any(d["scan_id"] == oblique.scan_id and d["detectable"] for d in _defects(demo))
 
 

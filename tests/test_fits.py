@@ -66,7 +66,7 @@ def test_projective_reproduces_four_targets_and_matches_heckbert() -> None:
     fit = fit_points("projective", square, quad, list("ABCD"))
     assert np.max(np.abs(fit.residuals)) < 1e-9
     np.testing.assert_allclose(fit.transform.matrix, _heckbert_square_to_quad(quad), atol=1e-9)
-    assert np.isnan(fit.loo).all()  # four points leave none to spare
+    assert np.isnan(fit.leave_one_out).all()  # four points leave none to spare
 
 
 def test_projective_reduces_to_affine() -> None:
@@ -127,8 +127,8 @@ def test_leave_one_out_hand_check() -> None:
     dst = src.copy()
     dst[2] += [0.03, 0.0]
     fit = fit_points("similarity", src, dst, ["A", "B", "C"])
-    assert fit.loo[2] == pytest.approx(0.03, abs=1e-12)
-    assert fit.loo[2] > fit.errors[2]
+    assert fit.leave_one_out[2] == pytest.approx(0.03, abs=1e-12)
+    assert fit.leave_one_out[2] > fit.errors[2]
 
 
 @pytest.mark.parametrize(

@@ -283,7 +283,7 @@ def _targets(result: "RunResult", move: Any) -> Layer:
             rows.append({"scan_id": s.scan_id, "name": t.name, "scanner_x": t.scanner[0], "scanner_y": t.scanner[1],
                          "drawing_x": t.drawing[0], "drawing_y": t.drawing[1],
                          "residual_m": float(np.hypot(*t.residual)) * u,
-                         "leave_one_out_m": t.loo * u, "fit_model": s.fit.model, "fit_passed": bool(s.fit_passed)})
+                         "leave_one_out_m": t.leave_one_out * u, "fit_model": s.fit.model, "fit_passed": bool(s.fit_passed)})
             geom.append(move(Point(t.drawing)))
     kinds = {"scan_id": "t", "name": "t", "scanner_x": "f", "scanner_y": "f", "drawing_x": "f", "drawing_y": "f",
              "residual_m": "f", "leave_one_out_m": "f", "fit_model": "t", "fit_passed": "b"}
@@ -320,7 +320,7 @@ def _runs(result: "RunResult") -> Layer:
             "field_scatter_db": s.reference.field_scatter_db if s.reference else np.nan,
             "incidence": s.incidence,
             "fit_model": s.fit.model,
-            "fit_frame": s.fit_describe,
+            "fit_frame": s.fit_summary,
             "fit_params": json.dumps(s.fit.transform.params()),
             "fit_rms": s.fit.rms,
             "fit_max": s.fit.worst[1],

@@ -34,7 +34,7 @@ class Fit:
     model: str
     names: tuple[str, ...]
     residuals: np.ndarray  # (n, 2) target − fitted, target units
-    loo: np.ndarray  # (n,) leave-one-out error, NaN where too few points remain
+    leave_one_out: np.ndarray  # (n,) leave-one-out error, NaN where too few points remain
 
     @property
     def errors(self) -> np.ndarray:
@@ -54,7 +54,7 @@ class Fit:
         name, worst = self.worst
         lines = [f"model {self.model}, {len(self.names)} points, RMS {self.rms:.4f} {unit}, largest {worst:.4f} ({name})",
                  f"  raw parameters (drawing units per working unit): {params}"]
-        for n, (dx, dy), e, lo in zip(self.names, self.residuals, self.errors, self.loo):
+        for n, (dx, dy), e, lo in zip(self.names, self.residuals, self.errors, self.leave_one_out):
             lo_s = f"{lo:.4f}" if np.isfinite(lo) else "  n/a "
             lines.append(f"  {n:<12} dx {dx:+.4f}  dy {dy:+.4f}  |r| {e:.4f}  leave-one-out {lo_s} {unit}")
         return lines

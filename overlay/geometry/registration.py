@@ -32,7 +32,7 @@ class TargetResult:
     scanner: tuple[float, float]
     drawing: tuple[float, float]
     residual: tuple[float, float]
-    loo: float
+    leave_one_out: float
 
 
 @dataclass
@@ -154,7 +154,7 @@ def register(scan: Scan, entry: ScanEntry, site: Site) -> Registration:
     check_scale(fit, frame, scan, u, at, src)
     passed = check_fit(fit, site.tolerance_m / u, site.drawing_unit, accept=site.accept_misfit, source=src)
     targets = [TargetResult(n, (float(s[0]), float(s[1])), (float(d[0]), float(d[1])), (float(r[0]), float(r[1])), float(lo))
-               for n, s, d, r, lo in zip(names, seen, drawing, fit.residuals.tolist(), fit.loo)]
+               for n, s, d, r, lo in zip(names, seen, drawing, fit.residuals.tolist(), fit.leave_one_out)]
     cos, how = _incidence(scan, entry, frame, fit, working, u)
     return Registration(frame, working, fit, passed, targets, cos, how, describe)
 

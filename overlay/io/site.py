@@ -140,7 +140,7 @@ class ScanEntry:
     tilt_deg: tuple[float, float] | None = None
 
 
-@dataclass
+@dataclass(frozen=True)
 class Site:
     path: Path
     name: str

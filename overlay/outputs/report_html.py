@@ -158,7 +158,7 @@ def _scan(s: "ScanResult", result: "RunResult", img: Picture) -> list[str]:
              + (f"gate {esc(s.gate.describe())}; " if s.gate else "")
              + (f"reference {esc(s.reference.describe())}; " if s.reference else "")
              + f"incidence correction {esc(s.incidence)}.</p>",
-             f"<pre>{esc(s.fit_describe)}, tolerance {site.tolerance_m * 1000:g} mm, "
+             f"<pre>{esc(s.fit_summary)}, tolerance {site.tolerance_m * 1000:g} mm, "
              f"{'passed' if s.fit_passed else 'MISFIT ACCEPTED BY OVERRIDE'}\n"
              f"{esc(fit_text(s, site.drawing_unit, result.unit_m))}\n" + esc("\n".join(s.fit.report(site.drawing_unit)))
              + "</pre>",

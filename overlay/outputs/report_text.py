@@ -209,7 +209,7 @@ def scan_section(s: "ScanResult", result: "RunResult") -> list[str]:
     if reasons:
         out.append("  invalid points: " + ", ".join(f"{k} {v}" for k, v in sorted(reasons.items())))
     verdict = "passed" if s.fit_passed else "MISFIT ACCEPTED BY OVERRIDE"
-    out.append(f"  scanner -> drawing: {s.fit_describe}, tolerance {site.tolerance_m * 1000:g} mm, {verdict}")
+    out.append(f"  scanner -> drawing: {s.fit_summary}, tolerance {site.tolerance_m * 1000:g} mm, {verdict}")
     out.append(f"    {fit_text(s, site.drawing_unit, result.unit_m)}")
     out += ["    " + line for line in s.fit.report(site.drawing_unit)]
     return out
