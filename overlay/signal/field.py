@@ -24,6 +24,9 @@ BISQUARE_C = 4.685
 START_SHARE = 0.60
 ITERATIONS = 30
 MIN_POINTS = 30
+# The robust scale never goes below this: residuals of an exact field are rounding (~1e-14 dB), and a
+# scale made of rounding would drop every point from the fit.  0.01 dB is far below any scan's scatter.
+SCALE_FLOOR_DB = 0.01
 
 
 @dataclass(frozen=True)
@@ -32,8 +35,7 @@ class FieldFit:
 
     level_db: np.ndarray  # fitted field at each point (NaN where it was not evaluated)
     span_db: float
-    scatter_db: float  # robust standard deviation of the inliers' residuals
-    inlier: np.ndarray  # points the fit kept (bisquare weight > 0)
+    scatter_db: float  # robust standard deviation of the inliers' residuals (bisquare weight > 0)
 
 
 def _design(xy: np.ndarray, centre: np.ndarray, half: np.ndarray) -> np.ndarray:
@@ -58,7 +60,7 @@ def fit_field(xy_m: np.ndarray, energy: np.ndarray, valid: np.ndarray) -> FieldF
         coef_new, *_ = np.linalg.lstsq(x * sw[:, None], level * sw, rcond=None)
         r = level - x @ coef_new
         kept = w > 0
-        scale = 1.4826 * np.median(np.abs(r[kept] - np.median(r[kept]))) or 1e-6
+        scale = max(1.4826 * float(np.median(np.abs(r[kept] - np.median(r[kept])))), SCALE_FLOOR_DB)
         u = r / (BISQUARE_C * scale)
         w = np.where(np.abs(u) < 1, (1 - u * u) ** 2, 0.0)
         if np.allclose(coef_new, coef, atol=1e-6):
@@ -67,8 +69,6 @@ def fit_field(xy_m: np.ndarray, energy: np.ndarray, valid: np.ndarray) -> FieldF
         coef = coef_new
     fitted = np.full(len(energy), np.nan)
     fitted[use] = x @ coef
-    inlier = np.zeros(len(energy), dtype=bool)
-    inlier[use] = w > 0
     r = level - x @ coef
     scatter = float(1.4826 * np.median(np.abs(r[w > 0] - np.median(r[w > 0]))))
-    return FieldFit(fitted, float(np.nanmax(fitted) - np.nanmin(fitted)), scatter, inlier)
+    return FieldFit(fitted, float(np.nanmax(fitted) - np.nanmin(fitted)), scatter)
