@@ -85,3 +85,53 @@ def test_grid_inferred_from_coordinates() -> None:
     g = infer_grid(xy[::-1].copy())
     assert g is not None and g.shape == (9, 9) and g.spacing() == pytest.approx(0.05)
     assert infer_grid(np.random.default_rng(0).uniform(size=(30, 2))) is None
+
+
+def _unit_grid(z: np.ndarray):
+    n = z.shape[0]
+    rr, cc = np.mgrid[0:n, 0:n]
+    xy = np.column_stack([cc.ravel(), rr.ravel()]).astype(float)  # 1 m spacing
+    return grid_from_indices(xy, rr.ravel(), cc.ravel())
+
+
+def test_a_corner_node_above_the_level_gives_its_interpolated_triangle() -> None:
+    # corner node 2 dB, its neighbours 0 dB, level 1 dB: linear interpolation puts the crossing half-way
+    # along both edges, a right triangle of legs 0.5 m — area 0.125 m² (worked by hand)
+    z = np.zeros((5, 5))
+    z[0, 0] = 2.0
+    grid = _unit_grid(z)
+    (p,) = level_polygons(grid, grid.values(z.ravel(), np.ones(25, bool)), 1.0)
+    assert p.area == pytest.approx(0.125, abs=1e-12) and len(p.exterior.coords) == 4  # a closed triangle
+
+
+def test_a_plateau_exactly_at_the_level_encloses_nothing_just_above_it_does() -> None:
+    # contourpy fills lower < z <= upper: nodes exactly at the level are boundary, not area.  A 3 × 3
+    # plateau a hair above the level, 0 around it, covers the 2 × 2 m² between its nodes plus slivers.
+    z = np.zeros((7, 7))
+    z[2:5, 2:5] = 6.0
+    grid = _unit_grid(z)
+    ok = np.ones(49, bool)
+    assert level_polygons(grid, grid.values(z.ravel(), ok), 6.0) == []
+    z[2:5, 2:5] = 6.0 + 1e-9
+    (p,) = level_polygons(grid, grid.values(z.ravel(), ok), 6.0)
+    assert p.area == pytest.approx(4.0, abs=1e-6)
+
+
+def test_a_single_node_exactly_at_the_level_gives_no_zero_area_polygon() -> None:
+    z = np.zeros((5, 5))
+    z[2, 2] = 6.0
+    grid = _unit_grid(z)
+    assert level_polygons(grid, grid.values(z.ravel(), np.ones(25, bool)), 6.0) == []
+
+
+@pytest.mark.parametrize("spike", [False, True], ids=["bow-tie", "bow-tie-with-spike"])
+def test_a_self_touching_ring_is_split_into_its_polygons(spike: bool) -> None:
+    # a bow-tie (0,0)-(2,2)-(2,0)-(0,2) is two triangles of 1 m² each (shoelace, by hand); with a spike
+    # make_valid returns a collection of a multipolygon and a line, and only the polygons may stay
+    from overlay.zones.contour import _valid_parts
+    from shapely.geometry import Polygon
+
+    coords = [(0, 0), (2, 2), (2, 0), (0, 2), (0, 0)] + ([(0, -2), (0, 0)] if spike else [])
+    parts = _valid_parts(Polygon(coords))
+    assert len(parts) == 2 and all(p.geom_type == "Polygon" and p.is_valid for p in parts)
+    assert sorted(p.area for p in parts) == pytest.approx([1.0, 1.0], abs=1e-12)

@@ -16,12 +16,14 @@ from overlay.zones.grid import Grid, ScatterGrid
 
 
 def level_polygons(grid: Grid | ScatterGrid, values: np.ma.MaskedArray, level: float) -> list[Polygon]:
-    """Polygons (with holes) where ``values >= level``; masked nodes are outside the scan.
+    """Polygons (with holes) where ``values > level``; masked nodes are outside the scan.
 
-    Returned polygons are valid and in the grid's coordinates, largest first.
+    contourpy fills ``lower < z <= upper``: a node exactly at the level lies on a boundary, and a
+    plateau exactly at it encloses no area.  Returned polygons are valid and in the grid's
+    coordinates, largest first.
     """
     z = np.ma.MaskedArray(values.data.astype(np.float64), mask=np.ma.getmaskarray(values))
-    if z.count() == 0 or not np.ma.max(z) >= level:
+    if z.count() == 0 or not np.ma.max(z) > level:
         return []
     upper = float(np.ma.max(z)) + 1.0
     gen = contourpy.contour_generator(grid.x, grid.y, z, fill_type=contourpy.FillType.OuterOffset)
@@ -40,6 +42,7 @@ def level_polygons(grid: Grid | ScatterGrid, values: np.ma.MaskedArray, level: f
 
 
 def _valid_parts(poly: Polygon) -> list[Polygon]:
+    """A self-touching ring made valid: its polygons, without the lines ``make_valid`` may leave."""
     if poly.is_valid:
         return [poly]
     fixed = shapely.make_valid(poly)
