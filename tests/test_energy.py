@@ -6,7 +6,9 @@ import numpy as np
 import pytest
 
 from overlay.errors import SignalError
+from overlay.signal import energy as energy_module
 from overlay.signal.energy import reference_energy, ver_db
+from overlay.signal.field import fit_field
 
 
 def test_db_values() -> None:
@@ -141,3 +143,72 @@ def test_ver_of_zero_and_missing_energy() -> None:
     out = ver_db(np.array([0.0, np.nan, 10.0]), 10.0)
     assert out[0] == -np.inf and np.isnan(out[1]) and out[2] == 0.0
     np.testing.assert_allclose(ver_db(np.array([2.0, 8.0]), np.array([1.0, 2.0])), [3.0103, 6.0206], atol=1e-4)
+
+
+# --- what the mutation run found untested (benchmarks/mutation-report.md) ----------------------------
+
+def test_each_reference_describes_itself_in_full() -> None:
+    # the sentence goes into every report as the run's provenance: checked word for word
+    e = np.arange(1.0, 11.0)
+    ok = np.ones(10, bool)
+    assert reference_energy(e, ok, "minimum").describe() == "minimum of 10 valid points: 1 (m/s)^2"
+    assert reference_energy(e, ok, "median").describe() == "median of 10 valid points: 5.5 (m/s)^2"
+    assert (reference_energy(e, ok, "region", region=np.arange(10) < 5).describe()
+            == "median of the healthy region of 5 valid points: 3 (m/s)^2")
+    assert reference_energy(e, ok, "percentile", 50.0).describe() == "50th percentile of 10 valid points: 5.5 (m/s)^2"
+    assert reference_energy(e, ok, "minimum").percentile is None  # only a percentile carries one
+    xy, flat, _ = _field(0.0)
+    auto = reference_energy(flat, np.ones(len(flat), bool), "auto", 10.0, xy_m=xy)
+    assert auto.describe() == (f"10th percentile of {len(flat)} valid points: {auto.energy:.4g} (m/s)^2; sound field "
+                               f"spans {auto.field_span_db:.1f} dB (scatter {auto.field_scatter_db:.1f} dB), within "
+                               "the 1 dB a scan-wide reference stands")
+    xy, varied, _ = _field(4.0)
+    trend = reference_energy(varied, np.ones(len(varied), bool), "trend", 10.0, xy_m=xy)
+    assert trend.describe() == (f"local sound-concrete field (a robust quadratic fit), 10th percentile of {len(varied)} "
+                                f"valid points against it, median {trend.energy:.4g} (m/s)^2; sound field spans "
+                                f"{trend.field_span_db:.1f} dB (scatter {trend.field_scatter_db:.1f} dB)")
+
+
+def test_auto_falling_back_keeps_the_asked_percentile_and_the_fitted_field() -> None:
+    xy, e, _ = _field(0.0)
+    ok = np.ones(len(e), bool)
+    fit = fit_field(xy, e, ok)
+    ref = reference_energy(e, ok, "auto", 25.0, xy_m=xy)
+    assert ref.method == "percentile" and ref.percentile == 25.0
+    assert ref.energy == pytest.approx(np.percentile(e, 25.0), rel=1e-12)  # numpy as the reference
+    assert ref.field_span_db == fit.span_db and ref.field_scatter_db == fit.scatter_db
+
+
+def test_a_field_spanning_exactly_the_threshold_keeps_the_scan_wide_reference(monkeypatch: pytest.MonkeyPatch) -> None:
+    # "more than AUTO_SPAN_DB" is strict: set the threshold to this field's own fitted span
+    xy, e, _ = _field(4.0)
+    ok = np.ones(len(e), bool)
+    monkeypatch.setattr(energy_module, "AUTO_SPAN_DB", fit_field(xy, e, ok).span_db)
+    assert reference_energy(e, ok, "auto", 10.0, xy_m=xy).method == "percentile"
+
+
+def test_trend_leaves_out_invalid_and_zero_energy_points() -> None:
+    # residuals against the fitted field, numpy's percentile as the reference; an invalid point of high
+    # energy and a valid point of zero energy (log10(0) = -inf) must both stay out of the statistics
+    xy, e, _ = _field(4.0)
+    ok = np.ones(len(e), bool)
+    e[7], ok[7] = 1e-3, False
+    e[9] = 0.0
+    ref = reference_energy(e, ok, "trend", 10.0, xy_m=xy)
+    fit = fit_field(xy, e, ok)
+    use = ok & (e > 0)
+    expect = fit.level_db + np.percentile(10 * np.log10(e[use]) - fit.level_db[use], 10.0)
+    assert ref.n_points == len(e) - 2
+    np.testing.assert_allclose(ref.level_db[use], expect[use], rtol=0, atol=1e-12)
+    assert ref.energy == pytest.approx(10 ** (np.median(expect[use]) / 10), rel=1e-12)
+
+
+def test_a_reference_error_names_its_scan() -> None:
+    # the one-line error reads "file: field: problem" (errors.py); the scan's file must be in it, on the
+    # trend's path and on the scan-wide fallback of "auto" alike
+    xy, e, _ = _field(0.0)
+    with pytest.raises(SignalError, match=r"^scan-7\.csv: reference: .*needs at least 30") as caught:
+        reference_energy(e[:20], np.ones(20, bool), "trend", xy_m=xy[:20], source="scan-7.csv")
+    assert caught.value.source == "scan-7.csv"
+    with pytest.raises(SignalError, match=r"^scan-7\.csv: reference: no valid point"):
+        reference_energy(e, np.zeros(len(e), bool), "auto", xy_m=xy, source="scan-7.csv")

@@ -11,7 +11,7 @@ import pytest
 from overlay.errors import CRSCheckError, RegistrationError, RegistrationWarning
 from overlay.geometry.crs import check_map_crs, from_placement, to_crs
 from overlay.geometry.fits import check_fit, fit_points
-from overlay.geometry.transforms import Similarity
+from overlay.geometry.transforms import Affine, Projective, Similarity
 
 # EPSG Guidance Note 7-2, method 9621 (2D similarity), example ED50 / UTM 31N → ETRS89 / UTM 31N:
 # XT = XT0 + M(XS·cosθ + YS·sinθ), YT = YT0 + M(−XS·sinθ + YS·cosθ)
@@ -104,7 +104,7 @@ def test_placement_bearing_convention() -> None:
 
 
 def test_inverse_undoes_the_transform() -> None:
-    a = Similarity(0.9, 0.2, 1.0, -2.0)
+    a = Similarity(0.9, 0.2, 1.7, -2.3)  # no shift of ±1: a·tx and a/tx must not coincide
     p = np.array([[0.3, 0.7], [-2.0, 4.0]])
     np.testing.assert_allclose(a.inverse().apply(a.apply(p)), p, atol=1e-12)
 
@@ -206,3 +206,47 @@ def test_station_offset_straight_and_arc() -> None:
     # mm drawing units: the same point in mm gives metres
     st_mm, off_mm = Alignment.from_points([(0.0, 0.0), (100000.0, 0.0)]).station_offset(np.array([[30000.0, 5000.0]]), 0.001)
     assert (st_mm[0], off_mm[0]) == pytest.approx((30.0, 5.0))
+
+
+def test_the_parameters_written_to_the_runs_table_carry_their_names() -> None:
+    # the runs table's fit_params holds these dicts as JSON; Affine uses the EPSG method 9624 parameter
+    # names A0..B2 (EPSG Guidance Note 7-2), the projective model h11..h32 with h33 = 1
+    s = Similarity(0.6, 0.8, 12.5, -3.0)
+    assert s.params() == {"a": 0.6, "b": 0.8, "tx": 12.5, "ty": -3.0, "scale": pytest.approx(1.0),
+                          "rotation_deg": pytest.approx(math.degrees(math.atan2(0.8, 0.6)))}
+    assert Affine(1.0, 2.0, 3.0, 4.0, 5.0, 6.0).params() == {"A0": 1.0, "A1": 2.0, "A2": 3.0, "B0": 4.0, "B1": 5.0,
+                                                              "B2": 6.0}
+    h = (1.0, 0.1, 2.0, 0.2, 1.1, -1.0, 0.01, 0.02)
+    assert Projective(h).params() == dict(zip(("h11", "h12", "h13", "h21", "h22", "h23", "h31", "h32"), h))
+
+
+def test_a_projective_transform_takes_one_point_or_many() -> None:
+    # x' = (h11·x + h12·y + h13)/(h31·x + h32·y + 1): at (2, 1) with the h below, by hand: w = 1.04,
+    # x' = 4.1 / 1.04, y' = 0.5 / 1.04
+    t = Projective((1.0, 0.1, 2.0, 0.2, 1.1, -1.0, 0.01, 0.02))
+    np.testing.assert_allclose(t.apply(np.array([2.0, 1.0])), [4.1 / 1.04, 0.5 / 1.04], rtol=1e-12)
+    np.testing.assert_allclose(t.apply(np.array([[2.0, 1.0], [0.0, 0.0]])), [[4.1 / 1.04, 0.5 / 1.04], [2.0, -1.0]],
+                               rtol=1e-12)
+
+
+def test_a_geometry_moves_vertex_by_vertex_and_its_area_scales_by_the_square() -> None:
+    # a similarity scales areas by a² + b² (= scale²): 1.2² + 0.5² = 1.69
+    from shapely.geometry import Polygon
+
+    t = Similarity(1.2, 0.5, 100.0, 50.0)  # scale 1.3: area × 1.69
+    square = Polygon([(0, 0), (2, 0), (2, 1), (0, 1)])
+    moved = t.apply_geometry(square)
+    np.testing.assert_allclose(np.asarray(moved.exterior.coords), t.apply(np.asarray(square.exterior.coords)))
+    assert moved.area == pytest.approx(2.0 * 1.69, rel=1e-12)
+
+
+def test_area_scale_of_each_model_against_its_closed_form() -> None:
+    # Affine: the determinant a1·b2 − a2·b1 everywhere.  Projective (h33 = 1): det J = det(H) / w³ with
+    # w = h31·x + h32·y + 1 (the Jacobian of a plane homography; Hartley & Zisserman — from memory).
+    pts = np.array([[0.0, 0.0], [2.0, 1.0], [-3.0, 4.0]])
+    shear = Affine(5.0, 1.2, 0.7, -2.0, -0.4, 0.9)
+    np.testing.assert_allclose(shear.jacobian_det(pts), 1.2 * 0.9 - 0.7 * (-0.4), rtol=1e-8)
+    t = Projective((1.0, 0.1, 2.0, 0.2, 1.1, -1.0, 0.01, 0.02))
+    w = 0.01 * pts[:, 0] + 0.02 * pts[:, 1] + 1.0
+    np.testing.assert_allclose(t.jacobian_det(pts), np.linalg.det(t.matrix) / w**3, rtol=1e-7)
+    assert t.local_scale(pts) == pytest.approx(math.sqrt(np.linalg.det(t.matrix) / np.mean(w) ** 3), rel=1e-7)

@@ -32,6 +32,7 @@ def test_aci318_modulus() -> None:
     assert aci318_modulus_pa(28) / 1e6 == pytest.approx(24870, abs=1)
     assert aci318_modulus_pa(30) / 1e6 == pytest.approx(25743, abs=1)
     assert aci318_modulus_pa(35) / 1e6 == pytest.approx(27806, abs=1)
+    assert aci318_modulus_pa(25) == pytest.approx(4700 * 5 * 1e6, rel=1e-12)  # √25 = 5: the formula exactly, in Pa
 
 
 def test_frequency_formula_and_inverse_round_trip() -> None:
