@@ -1,7 +1,7 @@
 """Mutation testing of the computational core, in bounded time: do the tests catch a changed result?
 
     pip install -e ".[test,mutation]"
-    python benchmarks/mutation.py [--modules energy,spectra …] [--budget 150] [--jobs 2]
+    python benchmarks/mutation.py [--modules energy,spectra …] [--budget 150] [--jobs 2] [--update]
 
 For each core module, in a scratch copy of the repository, mutmut (PyPI) changes the module one
 small edit at a time — an operator, a constant, a comparison, a dropped call — and runs only the
@@ -12,19 +12,24 @@ error message or a warning are not mutated (their wording is not a result).  Eac
 ``benchmarks/mutation-equivalents.toml`` with a one-line reason are equivalent (no input can tell
 them from the original) and not counted.  The report goes to ``benchmarks/mutation-report.md``:
 per module the counts, the share of non-equivalent survivors (target: at most 10 %), and the diff
-of every survivor.  Not part of CI (too slow); run it after touching the core (DEVELOPERS.md).
+of every survivor.  ``--update`` re-runs only ``--modules`` and keeps the other modules' rows of the
+existing report (each row says the day it was run).  Not part of CI (too slow); run it after touching
+the core (DEVELOPERS.md).
 """
 
 from __future__ import annotations
 
 import argparse
 import json
+import os
 import re
 import shutil
+import signal
 import subprocess
 import sys
 import tempfile
 import time
+from datetime import datetime, timezone
 from pathlib import Path
 
 import tomllib
@@ -110,12 +115,16 @@ def run_module(module: str, budget: float, jobs: int, mutmut: str) -> dict[str, 
         copy_repo(work)
         configure(work, module, CORE[module])
         t0 = time.perf_counter()
+        # its own session, so the budget stops mutmut's children too (a test may start worker processes)
+        run = subprocess.Popen([mutmut, "run", "--max-children", str(jobs)], cwd=work, start_new_session=True,
+                               stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
         try:
-            subprocess.run([mutmut, "run", "--max-children", str(jobs)], cwd=work, timeout=budget,
-                           stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+            run.wait(timeout=budget)
             timed_out = False
         except subprocess.TimeoutExpired:
             timed_out = True
+            os.killpg(run.pid, signal.SIGKILL)
+            run.wait()
         seconds = time.perf_counter() - t0
         status = results(work, mutmut)
         known = equivalents()
@@ -131,31 +140,63 @@ def run_module(module: str, budget: float, jobs: int, mutmut: str) -> dict[str, 
     checked = sum(v for k, v in counts.items() if k != "not checked")
     considered = checked - (len(survivors) - len(live))
     return {"module": module, "counts": counts, "survivors": survivors, "seconds": seconds, "timed_out": timed_out,
-            "share": len(live) / considered if considered else float("nan"), "checked": checked}
+            "share": len(live) / considered if considered else float("nan"), "checked": checked,
+            "day": datetime.now(timezone.utc).strftime("%Y-%m-%d")}
 
 
-def report(rows: list[dict[str, object]]) -> str:
-    out = ["# Mutation testing of the core", "",
-           "Made by `python benchmarks/mutation.py` (see its docstring). Survivors: mutants no test caught; "
-           "equivalent ones (no input tells them apart) are listed in `benchmarks/mutation-equivalents.toml`.", "",
-           "| module | mutants | checked | killed | survived | no tests | timeout | equivalent | live survivors | "
-           "share | time |", "|---|---|---|---|---|---|---|---|---|---|---|"]
-    for r in rows:
-        c = r["counts"]
-        surv = r["survivors"]
-        eq = sum(1 for s in surv if s[3])
-        live = len(surv) - eq
-        out.append(f"| {r['module']} | {sum(c.values())} | {r['checked']} | {c.get('killed', 0)} | {c.get('survived', 0)} | "
-                   f"{c.get('no tests', 0)} | {c.get('timeout', 0)} | {eq} | {live} | {r['share']:.1%} | "
-                   f"{r['seconds']:.0f} s{' (budget)' if r['timed_out'] else ''} |")
-    for r in rows:
-        live = [s for s in r["survivors"] if not s[3]]
-        if not live:
-            continue
-        out += ["", f"## {r['module']}: {len(live)} live survivor(s)", ""]
+HEADER = ["# Mutation testing of the core", "",
+          "Made by `python benchmarks/mutation.py` (see its docstring). Survivors: mutants no test caught; "
+          "equivalent ones (no input tells them apart) are listed in `benchmarks/mutation-equivalents.toml`.", "",
+          "| module | mutants | checked | killed | survived | no tests | timeout | equivalent | live survivors | "
+          "share | time | run |", "|---|---|---|---|---|---|---|---|---|---|---|---|"]
+
+
+def rendered(r: dict[str, object]) -> tuple[str, list[str]]:
+    """One module's table row and its survivor section (empty when nothing live survived)."""
+    c = r["counts"]
+    surv = r["survivors"]
+    eq = sum(1 for s in surv if s[3])
+    live = [s for s in surv if not s[3]]
+    row = (f"| {r['module']} | {sum(c.values())} | {r['checked']} | {c.get('killed', 0)} | {c.get('survived', 0)} | "
+           f"{c.get('no tests', 0)} | {c.get('timeout', 0)} | {eq} | {len(live)} | {r['share']:.1%} | "
+           f"{r['seconds']:.0f} s{' (budget)' if r['timed_out'] else ''} | {r['day']} |")
+    section: list[str] = []
+    if live:
+        section = ["", f"## {r['module']}: {len(live)} live survivor(s)", ""]
         for name, st, diff, _ in live:
-            out += [f"`{name}` ({st})", "", "```diff", diff or "(no diff)", "```", ""]
-    return "\n".join(out) + "\n"
+            section += [f"`{name}` ({st})", "", "```diff", diff or "(no diff)", "```", ""]
+    return row, section
+
+
+def previous(path: Path) -> dict[str, tuple[str, list[str]]]:
+    """The rows and sections of an existing report, by module (for ``--update``)."""
+    if not path.exists():
+        return {}
+    out: dict[str, tuple[str, list[str]]] = {}
+    lines = path.read_text().splitlines()
+    for line in lines:
+        cells = [c.strip() for c in line.strip("|").split("|")]
+        if line.startswith("| ") and cells[0] in CORE:
+            out[cells[0]] = (line, [])
+    module = None
+    for line in lines:
+        m = re.match(r"^## (\S+): \d+ live survivor", line)
+        if m:
+            module = m.group(1)
+            out[module][1].extend(["", line])
+        elif module is not None:
+            out[module][1].append(line)
+    return out
+
+
+def report(rows: list[dict[str, object]], kept: dict[str, tuple[str, list[str]]] | None = None) -> str:
+    parts = dict(kept or {})
+    parts.update({r["module"]: rendered(r) for r in rows})
+    order = [m for m in CORE if m in parts]
+    out = HEADER + [parts[m][0] for m in order]
+    for m in order:
+        out += parts[m][1]
+    return "\n".join(out).rstrip("\n") + "\n"
 
 
 def main() -> int:
@@ -164,18 +205,20 @@ def main() -> int:
     ap.add_argument("--budget", type=float, default=150.0, help="seconds per module (default 150)")
     ap.add_argument("--jobs", type=int, default=2, help="mutants run at once (default 2)")
     ap.add_argument("--report", type=Path, default=REPORT)
+    ap.add_argument("--update", action="store_true", help="keep the other modules' rows of the existing report")
     args = ap.parse_args()
     mutmut = shutil.which("mutmut", path=str(Path(sys.executable).parent)) or shutil.which("mutmut")
     if mutmut is None:
         print("mutmut is not installed: pip install -e '.[test,mutation]'", file=sys.stderr)
         return 2
+    kept = previous(args.report) if args.update else {}
     rows = []
     for module in args.modules.split(","):
         module = next((m for m in CORE if m == module or m.endswith("/" + module)), module)
         print(f"{module} …", file=sys.stderr, flush=True)
         rows.append(run_module(module, args.budget, args.jobs, mutmut))
-        args.report.write_text(report(rows))
-    print(report(rows))
+        args.report.write_text(report(rows, kept))
+    print(report(rows, kept))
     return 0
 
 
