@@ -36,10 +36,10 @@ from overlay.errors import (
     collected_warnings,
     warn_again,
 )
-from overlay.io.site import ScanEntry, Site
 from overlay.job import RunResult, finish_site, now_utc
 from overlay.outputs.staging import part_path, remove_stale_parts
 from overlay.scan import ScanResult, scan_entry
+from overlay.settings import ScanEntry, Site
 
 BUNDLE_FILES = ("scan.toml", "points.csv", "records.npy", "spectra.npy", "frequencies.npy")
 
@@ -113,11 +113,10 @@ def settings_digest(site: Site, entry: ScanEntry) -> str:
     shaping = {
         "version": __version__,
         "code": code_digest(),
-        "unit": site.drawing_unit, "tolerance_m": site.tolerance_m, "accept": site.accept_misfit, "model": site.model,
-        "reference": site.reference, "percentile": site.percentile, "incidence": site.incidence_correction,
-        "min_level": site.min_signal_level, "min_snr": site.min_snr_db, "min_area": site.min_area_m2,
-        "classes": [(c.name, c.threshold_db) for c in site.classes], "concrete": repr(site.concrete),
-        "repair": (site.margin_m, site.footprint, site.basis), "control": sorted(site.control_points.items()),
+        "unit": site.drawing_unit, "registration": repr(site.registration), "energy": repr(site.energy),
+        "quality": repr(site.quality), "min_area": site.zones.min_area_m2,
+        "classes": [(c.name, c.threshold_db) for c in site.zones.classes], "concrete": repr(site.concrete),
+        "repair": repr(site.repair), "control": sorted(site.control_points.items()),
         "entry": repr({k: v for k, v in vars(entry).items() if k != "bundle"}),
     }
     return hashlib.blake2b(json.dumps(shaping, sort_keys=True, default=str).encode(), digest_size=20).hexdigest()
@@ -212,7 +211,7 @@ def _map_local(entries: list[ScanEntry], site: Site, jobs: int, progress: Callab
     # each task carries its own entry only: the site (without its list of scans, which grows with the
     # campaign) goes to each worker once, so a task costs the same in a campaign of 50 or 12,800 scans
     pool = ProcessPoolExecutor(max_workers=jobs, initializer=_pool_worker,
-                               initargs=(dataclasses.replace(site, scans=[]),))
+                               initargs=(dataclasses.replace(site, scans=()),))
     futures = [pool.submit(_work_here, e) for e in entries]
 
     def results() -> Iterable[tuple[Any, ...]]:
@@ -234,7 +233,7 @@ def _map_dask(entries: list[ScanEntry], site: Site, address: str) -> Iterable[tu
     except (OSError, TimeoutError) as exc:
         raise OverlayError(f"cannot reach the Dask scheduler at {address} ({exc})", field="--dask") from exc
     with client:
-        shared = client.scatter(dataclasses.replace(site, scans=[]), broadcast=True)  # sent once, not with every task
+        shared = client.scatter(dataclasses.replace(site, scans=()), broadcast=True)  # sent once, not with every task
         futures = client.map(_work, entries, site=shared, single_thread=True, pure=False)
         yield from client.gather(futures)
 
@@ -319,9 +318,9 @@ def summary(c: CampaignResult) -> str:
     if c.result is not None:
         from overlay.quantities import defect_rows
 
-        rows = defect_rows(c.result.zones, c.result.site.classes, c.result.site.basis)
-        lines.append(f"defects, each once at the highest class it reaches (affected area on the {c.result.site.basis}):")
-        for zc in reversed(c.result.site.classes):
+        rows = defect_rows(c.result.zones, c.result.site.zones.classes, c.result.site.repair.basis)
+        lines.append(f"defects, each once at the highest class it reaches (affected area on the {c.result.site.repair.basis}):")
+        for zc in reversed(c.result.site.zones.classes):
             mine = [float(r["affected_area_m2"] or 0.0) for r in rows if r["class"] == zc.name]
             lines.append(f"  {zc.name:<10} {len(mine):4d} defect(s) {sum(mine):9.4f} m2")
     if c.failures:

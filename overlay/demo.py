@@ -104,7 +104,7 @@ def generate(dest: Path, scenario_dir: Path | None = None) -> Path:
 
     write_asbuilt_dxf(dest / "as-built.dxf", sc["structure"])
     write_assets(dest / "assets.gpkg", sc["structure"])
-    levels = [(c.name, c.threshold_db) for c in read_site(site_path).classes]
+    levels = [(c.name, c.threshold_db) for c in read_site(site_path).zones.classes]
     for d in defects:
         scan_id = next((s["id"] for s in truth["scans"] if d["id"] in s["defects"]), None)
         seg_h = h0 * sweep[gate[0] : gate[1]]

@@ -39,16 +39,17 @@ from overlay.geometry.crs import (
 from overlay.geometry.fits import Fit, check_fit, fit_points
 from overlay.geometry.stations import Alignment
 from overlay.geometry.transforms import Similarity
-from overlay.io.site import SCALE_RANGE, Site
+from overlay.io.site import SCALE_RANGE
 from overlay.scan import ScanResult
+from overlay.settings import Site
 from overlay.units import LENGTH_TO_M
 from overlay.zones.mosaic import mosaic_zones
 from overlay.zones.zone import Zone
 
 if TYPE_CHECKING:
     from overlay.campaign import CampaignResult
-    from overlay.view import ResultView
     from overlay.outputs.write import Written
+    from overlay.view import ResultView
 
 
 @dataclass
@@ -89,17 +90,17 @@ class RunResult:
         s = self.site
         return {
             "drawing_unit": s.drawing_unit,
-            "reference": s.reference,
-            "percentile": s.percentile,
-            "incidence_correction": s.incidence_correction,
-            "min_signal_level": s.min_signal_level,
-            "min_snr_db": s.min_snr_db,
-            "classes": ";".join(f"{c.name}>={c.threshold_db:g}dB" for c in s.classes),
-            "min_area_m2": s.min_area_m2,
+            "reference": s.energy.reference,
+            "percentile": s.energy.percentile,
+            "incidence_correction": s.energy.incidence_correction,
+            "min_signal_level": s.quality.min_signal_level,
+            "min_snr_db": s.quality.min_snr_db,
+            "classes": ";".join(f"{c.name}>={c.threshold_db:g}dB" for c in s.zones.classes),
+            "min_area_m2": s.zones.min_area_m2,
             "concrete": f"E {s.concrete.modulus_pa / 1e9:.2f} GPa, rho {s.concrete.density:g}, nu {s.concrete.poisson:g}",
-            "repair": f"margin {s.margin_m:g} m, {s.footprint} footprint, basis {s.basis}",
-            "tolerance_m": s.tolerance_m,
-            "accept_misfit": s.accept_misfit,
+            "repair": f"margin {s.repair.margin_m:g} m, {s.repair.footprint} footprint, basis {s.repair.basis}",
+            "tolerance_m": s.registration.tolerance_m,
+            "accept_misfit": s.registration.accept_misfit,
             "crs": self.crs.to_string() if self.crs else "",
         }
 
@@ -138,7 +139,7 @@ def map_placement(site: Site, site_xy: np.ndarray) -> tuple[Similarity | None, p
             [mo.name for mo in m.monuments],
             what="monuments",
         )
-        check_fit(fit, m.tolerance_m, "m", accept=site.accept_misfit, source=src)
+        check_fit(fit, m.tolerance_m, "m", accept=site.registration.accept_misfit, source=src)
         assert isinstance(fit.transform, Similarity)
         t = fit.transform
         k = t.scale / LENGTH_TO_M[site.drawing_unit]
@@ -169,7 +170,7 @@ def finish_site(site: Site, results: list[ScanResult], started: str, caught: lis
             assets = read_asset_table(site.elements)
             layer = element_layer(assets, crs, to_map, LENGTH_TO_M[site.drawing_unit], site.elements.where)
     warn_again(seen)
-    pieces = split_by_assets(zones, site.basis, to_map, layer) if layer else []
+    pieces = split_by_assets(zones, site.repair.basis, to_map, layer) if layer else []
     return RunResult(site, results, to_map, crs, map_fit, started, warnings=[m for _, m in [*caught, *seen]], mosaic=zones,
                      element_areas=layer.areas_m2 if layer else {}, asset_pieces=pieces, map_scale=scale, assets=assets)
 

@@ -13,8 +13,8 @@ from dataclasses import dataclass
 from typing import TYPE_CHECKING, Sequence
 
 if TYPE_CHECKING:
-    from overlay.io.site import ZoneClass
     from overlay.job import RunResult
+    from overlay.settings import ZoneClass
     from overlay.zones.zone import Zone
 
 
@@ -130,12 +130,12 @@ def _total(rows: list[dict[str, object]], key: str) -> object:
 
 def element_rows(result: "RunResult") -> list[dict[str, object]]:
     """Per element and highest class: the defect rows added up, and the element's area and share."""
-    basis = result.site.basis
+    basis = result.site.repair.basis
     groups: dict[tuple[str, str], list[dict[str, object]]] = {}
-    for r in defect_rows(result.zones, result.site.classes, basis):
+    for r in defect_rows(result.zones, result.site.zones.classes, basis):
         groups.setdefault((str(r["element"]), str(r["class"])), []).append(r)
-    order = [c.name for c in result.site.classes]
-    cols = class_columns(result.site.classes)
+    order = [c.name for c in result.site.zones.classes]
+    cols = class_columns(result.site.zones.classes)
     out = []
     for (element, cls), members in sorted(groups.items(), key=lambda kv: (kv[0][0], -order.index(kv[0][1]))):
         el = result.element_areas.get(element, float("nan"))
@@ -154,8 +154,8 @@ def asset_rows(result: "RunResult") -> list[dict[str, object]]:
     """Per owner's asset and highest class: each defect's outline cut by the asset; footprint and
     volume shared out by the outline's share on that asset (a defect across two panels counts in
     both, each with its part)."""
-    basis = result.site.basis
-    found = {d.defect_id: d for d in defects(result.zones, result.site.classes)}
+    basis = result.site.repair.basis
+    found = {d.defect_id: d for d in defects(result.zones, result.site.zones.classes)}
     groups: dict[tuple[str, str], dict[str, float]] = {}
     for p in result.asset_pieces:
         if basis == "outline" and p["zone_id"] != p["defect_id"]:
@@ -170,7 +170,7 @@ def asset_rows(result: "RunResult") -> list[dict[str, object]]:
         for k, v in (("n", 1.0), ("affected", p["area_m2"]), ("footprint", z.footprint_area_m2 * share),
                      ("vlow", z.volume_low_m3 * share), ("vhigh", z.volume_high_m3 * share)):
             g[k] = g.get(k, 0.0) + v
-    order = [c.name for c in result.site.classes]
+    order = [c.name for c in result.site.zones.classes]
     out = []
     for (asset, cls), g in sorted(groups.items(), key=lambda kv: (kv[0][0], -order.index(kv[0][1]))):
         el = result.element_areas.get(asset, float("nan"))
@@ -183,12 +183,12 @@ def asset_rows(result: "RunResult") -> list[dict[str, object]]:
 
 def zone_rows(result: "RunResult") -> list[dict[str, object]]:
     """One row per class contour: information beside the priced rows."""
-    order = {c.name: i for i, c in enumerate(result.site.classes)}
+    order = {c.name: i for i, c in enumerate(result.site.zones.classes)}
     rows = []
     for z in sorted(result.zones, key=lambda z: (z.element, order[z.class_name], z.zone_id)):
         rows.append({
             "row_kind": "zone", "element": z.element, "class": z.class_name, "zone_id": z.zone_id,
-            "defect_id": z.defect_id, "scan_id": z.scan_id, "n_defects": "", "basis": result.site.basis,
+            "defect_id": z.defect_id, "scan_id": z.scan_id, "n_defects": "", "basis": result.site.repair.basis,
             "contour_area_m2": rounded(z.area_m2, 4), "outline_area_m2": rounded(z.outline_area_m2, 4),
             "outline_basis": z.outline_basis, "affected_area_m2": "", "footprint_length_m": "",
             "footprint_width_m": "", "footprint_area_m2": "", "depth_low_m": rounded(z.depth_low_m, 3),
@@ -201,7 +201,7 @@ def zone_rows(result: "RunResult") -> list[dict[str, object]]:
 def quantity_rows(result: "RunResult") -> list[dict[str, object]]:
     """Every row of the quantities table, primary first: defects, element and asset totals, class
     contours, cautions (row kinds: ``ROW_KINDS``); areas m², lengths and depths m, volumes m³."""
-    rows = defect_rows(result.zones, result.site.classes, result.site.basis)
+    rows = defect_rows(result.zones, result.site.zones.classes, result.site.repair.basis)
     rows += element_rows(result) + asset_rows(result) + zone_rows(result)
     rows += [{"row_kind": "caution", "note": c} for c in result.cautions]
     return rows

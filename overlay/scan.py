@@ -18,7 +18,7 @@ from overlay.errors import SignalError
 from overlay.geometry.fits import Fit
 from overlay.geometry.registration import Registration, TargetResult, register
 from overlay.io.bundle import Scan, read_bundle
-from overlay.io.site import ScanEntry, Site
+from overlay.settings import ScanEntry, Site
 from overlay.signal.energy import Reference, reference_energy, ver_db
 from overlay.signal.gate import Gate, choose_gate
 from overlay.signal.incidence import normal_energy
@@ -156,7 +156,7 @@ def _from_payload(scan: Scan, site: Site, entry: ScanEntry, reg: Registration, p
         assert scan.spectra is not None and scan.frequencies is not None
         sp = given_spectra(scan.spectra, scan.frequencies, scan.band_hz, scan.velocity_scale)
     energy, cos_inc = sp.energy, reg.cos_incidence
-    if cos_inc is not None and site.incidence_correction:
+    if cos_inc is not None and site.energy.incidence_correction:
         energy = normal_energy(energy, cos_inc)
         incidence = f"applied ({reg.incidence_how}; largest {np.nanmax(incidence_deg):.1f} deg)"
     else:
@@ -167,8 +167,8 @@ def _from_payload(scan: Scan, site: Site, entry: ScanEntry, reg: Registration, p
         valid &= ~bad
     if not valid.any():
         raise SignalError("no valid point in the scan (all flagged, non-finite or below the quality floors)", source=src)
-    region = healthy_mask(scan, entry, point_xy) if site.reference == "region" else None
-    reference = reference_energy(energy, valid, site.reference, site.percentile, region, source=src,
+    region = healthy_mask(scan, entry, point_xy) if site.energy.reference == "region" else None
+    reference = reference_energy(energy, valid, site.energy.reference, site.energy.percentile, region, source=src,
                                  xy_m=point_xy * LENGTH_TO_M[site.drawing_unit])
     ver = ver_db(energy, reference.at_points())
     reason[valid & ~np.isfinite(ver)] = "zero energy"

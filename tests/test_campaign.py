@@ -94,9 +94,9 @@ def test_cache_recomputes_only_what_changed(site_copy: Path, tmp_path: Path) -> 
     # a setting that shapes zones invalidates every scan; one that only names outputs does not
     import dataclasses
 
-    moved = run_campaign(dataclasses.replace(site, basename="other"), cache_dir=cache)
+    moved = run_campaign(dataclasses.replace(site, outputs=dataclasses.replace(site.outputs, basename="other")), cache_dir=cache)
     assert moved.computed == []
-    reref = run_campaign(dataclasses.replace(site, percentile=20.0), cache_dir=cache)
+    reref = run_campaign(dataclasses.replace(site, energy=dataclasses.replace(site.energy, percentile=20.0)), cache_dir=cache)
     assert len(reref.computed) == 6
 
 
@@ -141,7 +141,7 @@ def test_a_task_carries_its_own_scan_only(site_copy: Path, monkeypatch: pytest.M
     monkeypatch.setattr(concurrent.futures.ProcessPoolExecutor, "__init__", init)
     site = read_site(site_copy)
     entries = site.scans[:2]
-    big = dataclasses.replace(site, scans=list(site.scans) * 1000)
+    big = dataclasses.replace(site, scans=tuple(site.scans) * 1000)
     for s in (site, big):
         results = list(campaign._map_local(entries, s, 2, None))
         assert [r[1] for r in results] == [None, None]  # both scans done

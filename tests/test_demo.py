@@ -14,7 +14,7 @@ def _defects(demo: dict) -> list[dict]:
 
 def test_every_detectable_defect_is_found(demo: dict) -> None:
     zones = demo["result"].zones
-    lowest = demo["result"].site.classes[0].name
+    lowest = demo["result"].site.zones.classes[0].name
     detectable = [d for d in _defects(demo) if d["detectable"]]
     assert len(detectable) >= 4
     for d in detectable:
@@ -81,7 +81,7 @@ def test_gate_from_geometry_and_dropouts_reported(demo: dict) -> None:
 
 def test_nested_classes(demo: dict) -> None:
     zones = demo["result"].zones
-    order = [c.name for c in demo["result"].site.classes]
+    order = [c.name for c in demo["result"].site.zones.classes]
     for z in zones:
         k = order.index(z.class_name)
         if k == 0:
@@ -102,7 +102,7 @@ def test_incidence_correction_flattens_the_healthy_scan(demo: dict) -> None:
     site = demo["result"].site
     entry = next(e for e in site.scans if e.bundle.name == "S-104")
     on = next(s for s in demo["result"].scans if s.scan_id == "S-104")
-    off = process_scan(read_bundle(entry.bundle), dataclasses.replace(site, incidence_correction=False), entry)
+    off = process_scan(read_bundle(entry.bundle), dataclasses.replace(site, energy=dataclasses.replace(site.energy, incidence_correction=False)), entry)
     assert on.incidence.startswith("applied") and off.incidence == "off"
     far = on.valid & (on.incidence_deg > 22.0)
     near = on.valid & (on.incidence_deg < 5.0)
@@ -121,7 +121,7 @@ def test_defect_outline_beats_the_contour_and_matches_truth(demo: dict) -> None:
     # outline areas within 2 % of the truth outlines for the detectable defects (the demo is made with the
     # model's own physics, so this checks the fit, not the model), and closer to the true footprint than
     # the threshold contour — so quantities use the outline (basis); the model must be the basis here
-    assert demo["result"].site.basis == "outline"
+    assert demo["result"].site.repair.basis == "outline"
     for d in _defects(demo):
         if not d["detectable"]:
             continue

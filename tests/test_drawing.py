@@ -45,7 +45,7 @@ def _label_boxes(doc, result) -> dict[str, shapely.Polygon]:
     not our placement's estimate), hung from the top-left insertion point."""
     from ezdxf.tools.text_size import mtext_size
 
-    layers = {layer_names(c.name)["text"] for c in result.site.classes}
+    layers = {layer_names(c.name)["text"] for c in result.site.zones.classes}
     out = {}
     for m in doc.modelspace().query("MTEXT"):
         if m.dxf.layer in layers:
@@ -57,7 +57,7 @@ def _label_boxes(doc, result) -> dict[str, shapely.Polygon]:
 
 def _check_labels(doc, result) -> int:
     boxes = _label_boxes(doc, result)
-    found = defects(result.zones, result.site.classes)
+    found = defects(result.zones, result.site.zones.classes)
     assert set(boxes) == {d.defect_id for d in found}  # one label per defect
     keys = sorted(boxes)
     for i, a in enumerate(keys):
@@ -68,7 +68,7 @@ def _check_labels(doc, result) -> int:
         for other, z in zone.items():
             if other != k:
                 assert not box.intersects(z), (k, other)
-    layers = {layer_names(c.name)["text"] for c in result.site.classes}
+    layers = {layer_names(c.name)["text"] for c in result.site.zones.classes}
     leaders = [shapely.LineString([e.dxf.start.vec2, e.dxf.end.vec2]) for e in doc.modelspace().query("LINE")
                if e.dxf.layer in layers]
     h = min(b.bounds[3] - b.bounds[1] for b in boxes.values()) / 2  # half a (two-line) label's height
@@ -100,7 +100,7 @@ def test_audit_clean_for_a_new_drawing_and_onto_the_owners(drawn: dict, demo: di
 def test_fills_by_layer_in_the_class_colour_and_a_dashed_defect_outline(drawn: dict) -> None:
     doc, result = drawn["doc"], drawn["result"]
     colours = palette.for_site(result.site)
-    for c in result.site.classes:
+    for c in result.site.zones.classes:
         names = layer_names(c.name)
         hatches = doc.modelspace().query(f'HATCH[layer=="{names["fill"]}"]')
         assert hatches and all(h.dxf.color == 256 for h in hatches)  # BYLAYER
@@ -204,10 +204,10 @@ def test_the_sheet_shows_the_structure_at_the_plot_scale_with_the_schedule(drawn
 def test_detail_labels_clear_of_each_other_their_leaders_and_the_target_symbols(drawn: dict) -> None:
     doc, result = drawn["doc"], drawn["result"]
     sheet = next(lo for lo in doc.layouts if lo.name.startswith("OVL "))
-    layers = {layer_names(c.name)["text"] for c in result.site.classes}
+    layers = {layer_names(c.name)["text"] for c in result.site.zones.classes}
     labels = [_text_box(t) for t in sheet.query("TEXT") if t.dxf.layer in layers]
     leaders = [shapely.LineString([e.dxf.start.vec2, e.dxf.end.vec2]) for e in sheet.query("LINE") if e.dxf.layer in layers]
-    assert len(labels) >= len(defects(result.zones, result.site.classes))  # each defect in at least one detail
+    assert len(labels) >= len(defects(result.zones, result.site.zones.classes))  # each defect in at least one detail
     for i, a in enumerate(labels):
         assert all(a.intersection(b).area <= 1e-9 for b in labels[i + 1:])
     for line in leaders:
@@ -236,13 +236,13 @@ def test_ogr_reads_hatch_colours_and_labels(drawn: dict) -> None:
     path = drawn["paths"]["dxf"]
     result = drawn["result"]
     colours = palette.for_site(result.site)
-    for c in result.site.classes:
+    for c in result.site.zones.classes:
         done = subprocess.run(["ogrinfo", "-al", str(path), "-where", f"Layer='{layer_names(c.name)['fill']}'"],
                               capture_output=True, text=True, check=True)
         assert f"BRUSH(fc:{colours[c.name].hex}" in done.stdout  # OGR's style string carries the class colour
     done = subprocess.run(["ogrinfo", "-al", str(path), "-where", "SubClasses LIKE '%MText%'"],
                           capture_output=True, text=True, check=True)
-    for d in defects(result.zones, result.site.classes):
+    for d in defects(result.zones, result.site.zones.classes):
         assert f"Text (String) = {d.defect_id}" in done.stdout
 
 
@@ -290,7 +290,7 @@ def test_dense_campaign_labels_stay_apart(tmp_path: Path) -> None:
     write_bundle(tmp_path / "S-D", n_rows=n, n_cols=n, spacing=0.02, payload="ver", ver=ver.ravel(),
                  points_header="id,row,col,x,y,ver_db", scan_id="S-D")
     result = run_site(read_site(write_site(tmp_path, ["S-D"])))
-    assert len(defects(result.zones, result.site.classes)) == 30
+    assert len(defects(result.zones, result.site.zones.classes)) == 30
     path = tmp_path / "dense.dxf"
     DxfExporter().write(result, path)
     doc = ezdxf.readfile(path)

@@ -12,7 +12,7 @@ import pytest
 
 from overlay.errors import OutputConflictError, SiteFileError
 from overlay.exporters.dxf import APPID, DxfExporter, layer_names
-from overlay.io.site import DxfStyle
+from overlay.settings import DxfStyle
 
 
 def _snapshot(path: Path) -> dict:

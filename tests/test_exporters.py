@@ -35,7 +35,7 @@ def test_dxf_layers_polylines_units_and_audit(written: dict) -> None:
     assert doc.header["$INSUNITS"] == 6
     assert doc.dxfversion >= "AC1027"  # R2013
     msp = doc.modelspace()
-    for zc in result.site.classes:
+    for zc in result.site.zones.classes:
         names = layer_names(zc.name)
         assert all(doc.layers.has_entry(n) for n in names.values())
         zones = [z for z in result.zones if z.class_name == zc.name]
@@ -163,10 +163,10 @@ def test_quantities_csv_totals_equal_sum_of_rows(written: dict) -> None:
     for d in defect_rows:
         # a defect's class contour areas are those of its zones; its class is the highest it reaches
         mine = [r for r in zone_rows if r["defect_id"] == d["defect_id"]]
-        for c in result.site.classes:
+        for c in result.site.zones.classes:
             assert float(d[f"contour_{c.name}_m2"]) == pytest.approx(
                 sum(float(r["contour_area_m2"]) for r in mine if r["class"] == c.name), abs=2e-4)
-        reached = [c.name for c in result.site.classes if any(r["class"] == c.name for r in mine)]
+        reached = [c.name for c in result.site.zones.classes if any(r["class"] == c.name for r in mine)]
         assert d["class"] == reached[-1]
 
 
@@ -182,7 +182,7 @@ def test_dxf_hatches_carry_holes_as_islands(written: dict) -> None:
     # DXF reference, HATCH: 91 = number of boundary paths, 92 path type bits (1 external, 16 outermost)
     result = written["result"]
     doc = ezdxf.readfile(written["paths"]["dxf"])
-    for zc in result.site.classes:
+    for zc in result.site.zones.classes:
         hatches = doc.modelspace().query(f'HATCH[layer=="{layer_names(zc.name)["fill"]}"]')
         zones = sorted((z for z in result.zones if z.class_name == zc.name), key=lambda z: len(z.contour.interiors))
         paths = sorted(len(h.paths) for h in hatches)
@@ -205,7 +205,7 @@ def test_geopackage_field_descriptions(written: dict) -> None:
         con.close()
     assert "order of magnitude" in rows["depth_low_m"] and titles["area_m2"] == "Contour area (m²)"
     assert ext == [("gpkg_data_column_constraints", "read-write"), ("gpkg_data_columns", "read-write")]
-    assert enum == [c.name for c in written["result"].site.classes]
+    assert enum == [c.name for c in written["result"].site.zones.classes]
 
 
 def test_gdal_command_line_reads_the_geopackage(written: dict) -> None:

@@ -159,7 +159,8 @@ def test_angle_scan_with_three_targets_goes_through_the_pinhole(tmp_path) -> Non
     # then a similarity; a target at (10°, 0) lies 4·tan 10° = 0.7053 m from the boresight (hand-worked)
     from overlay.geometry.registration import register
     from overlay.io.bundle import read_bundle
-    from overlay.io.site import ScanEntry, read_site
+    from overlay.io.site import read_site
+    from overlay.settings import ScanEntry
 
     from .conftest import write_site
 

@@ -94,7 +94,8 @@ def qgis_layers(path: Path, *layers: str) -> dict:
 @pytest.fixture(scope="module")
 def written(demo: dict, tmp_path_factory: pytest.TempPathFactory) -> dict:
     out = tmp_path_factory.mktemp("gis")
-    site = dataclasses.replace(demo["result"].site, formats=("dxf", "gpkg", "quantities-csv", "shapefile"))
+    site = dataclasses.replace(demo["result"].site, outputs=dataclasses.replace(
+        demo["result"].site.outputs, formats=("dxf", "gpkg", "quantities-csv", "shapefile")))
     result = dataclasses.replace(demo["result"], site=site)
     return {"paths": write_outputs(result, out, pictures=False).paths, "result": result}
 
@@ -198,23 +199,23 @@ def test_dates_and_flags_have_real_types(written: dict, demo: dict, tmp_path: Pa
 
 def test_one_finding_per_defect_when_priced_on_the_outline(demo: dict, tmp_path: Path) -> None:
     result = demo["result"]
-    assert result.site.basis == "outline"
+    assert result.site.repair.basis == "outline"
     target = owner_file(tmp_path / "o", "1.2")
     site = dataclasses.replace(result.site, elements=dataclasses.replace(result.site.elements, source=target))
     merged = merge_findings(dataclasses.replace(result, site=site))
     rows = pyogrio.read_dataframe(target, layer="acoustic_findings")
-    found = defects(result.zones, result.site.classes)
+    found = defects(result.zones, result.site.zones.classes)
     # the demo's defects lie inside one panel each: one row per defect, not one per defect and class
     assert merged.added == len(rows) == len(found) < len(result.zones)
     by_defect = {d.defect_id: d for d in found}
     for _, r in rows.iterrows():
         d = by_defect[r["zone_id"]]
         assert r["class"] == d.highest_class
-        for c in result.site.classes:
+        for c in result.site.zones.classes:
             assert r[f"area_{c.name}_m2"] == pytest.approx(d.contour_area_m2(c.name), abs=1e-6)
         assert r["affected_area_m2"] == pytest.approx(d.lowest.outline_area_m2, abs=1e-6)  # stored to 1e-6 m²
     # priced on the contour: a row per class zone again
-    contour = dataclasses.replace(site, basis="contour")
+    contour = dataclasses.replace(site, repair=dataclasses.replace(site.repair, basis="contour"))
     pieces = [dict(p) for p in result.asset_pieces]
     for p in pieces:  # with basis contour the pieces are the contours themselves
         z = next(z for z in result.zones if z.zone_id == p["zone_id"])

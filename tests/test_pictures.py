@@ -108,7 +108,7 @@ def test_picture_ids_and_numbers_match_the_zone_table(written: dict, monkeypatch
             did = name[len("defect-"):]
             assert did in defects
             d = defects[did]
-            for c in written["result"].site.classes:
+            for c in written["result"].site.zones.classes:
                 area = float(d[f"contour_{c.name}_m2"])
                 if area > 0:
                     assert f"{c.name} {area:.4f}" in text, (name, c.name)
@@ -252,7 +252,7 @@ def test_report_loads_in_headless_chromium(written: dict, tmp_path: Path) -> Non
 
 def test_no_pictures_writes_none(demo: dict, tmp_path: Path) -> None:
     paths = write_outputs(demo["result"], tmp_path, pictures=False).paths
-    assert "html" not in paths and not (tmp_path / f"{demo['result'].site.basename}-pictures").exists()
+    assert "html" not in paths and not (tmp_path / f"{demo['result'].site.outputs.basename}-pictures").exists()
 
 
 def test_pdf_report_where_chromium_is_installed(demo: dict, tmp_path: Path, written: dict) -> None:
@@ -324,8 +324,8 @@ def folder_report(demo: dict, tmp_path_factory: pytest.TempPathFactory) -> dict:
 def test_large_report_is_a_folder_of_pages_with_linked_pictures(folder_report: dict) -> None:
     paths, result = folder_report["paths"], folder_report["result"]
     index = paths["html"]
-    assert index.name == "index.html" and index.parent.name == f"{result.site.basename}-report"
-    assert not (folder_report["out"] / f"{result.site.basename}-report.html").exists()
+    assert index.name == "index.html" and index.parent.name == f"{result.site.outputs.basename}-report"
+    assert not (folder_report["out"] / f"{result.site.outputs.basename}-report.html").exists()
     pages = sorted(index.parent.glob("*.html"))
     assert len(pages) == 1 + len({s.element for s in result.scans})
     linked: set[str] = set()
@@ -385,6 +385,6 @@ def test_campaign_pictures_are_compact_and_keyed(folder_report: dict) -> None:
         img = _pixels(png)
         assert len(np.unique(img.reshape(-1, img.shape[-1]), axis=0)) > 50  # not blank
     lo, hi = pictures.ver_scale(result)
-    assert (lo, hi) == (0.0, result.site.classes[-1].threshold_db + 5.0)
+    assert (lo, hi) == (0.0, result.site.zones.classes[-1].threshold_db + 5.0)
     for page in paths["html"].parent.glob("element-*.html"):
         assert f"from {lo:g} dB" in page.read_text() and "linear-gradient" in page.read_text()

@@ -17,8 +17,8 @@ def test_defaults_and_glob(tmp_path: Path) -> None:
     write_bundle(tmp_path / "scans" / "S-2")
     site = read_site(write_site(tmp_path, ["scans/S-*"]))
     assert [e.bundle.name for e in site.scans] == ["S-1", "S-2"]
-    assert [c.name for c in site.classes] == ["watch", "suspect", "probable"]
-    assert site.reference == "auto" and site.percentile == 10
+    assert [c.name for c in site.zones.classes] == ["watch", "suspect", "probable"]
+    assert site.energy.reference == "auto" and site.energy.percentile == 10
     assert site.map is None
 
 
@@ -50,6 +50,32 @@ def test_bad_fields(tmp_path: Path, extra: str, fragment: str) -> None:
     assert info.value.exit_code == 3
 
 
+def test_each_table_is_one_frozen_spec(tmp_path: Path) -> None:
+    # every table of the file lands in its own spec; nothing can change a setting in place, and the
+    # command line's override makes a new value (the file's own reading is kept)
+    import argparse
+    import dataclasses
+
+    from overlay.cli.common import read_site_as_told
+
+    write_bundle(tmp_path / "S-1")
+    extra = ('\n[energy]\npercentile = 20\nincidence_correction = false\n[quality]\nmin_snr_db = 6\n'
+             '[repair]\nmargin_m = 0.1\nbasis = "contour"\n[outputs]\nbasename = "deck"\nformats = ["dxf"]\n')
+    path = write_site(tmp_path, ["S-1"], extra)
+    site = read_site(path)
+    assert (site.energy.percentile, site.energy.incidence_correction, site.quality.min_snr_db) == (20, False, 6)
+    assert (site.repair.margin_m, site.repair.basis, site.outputs.basename, site.outputs.formats) == (
+        0.1, "contour", "deck", ("dxf",))
+    assert site.registration.tolerance_m == 0.01 and not site.registration.accept_misfit
+    for spec in (site, site.registration, site.energy, site.quality, site.zones, site.repair, site.outputs):
+        field = dataclasses.fields(spec)[0].name
+        with pytest.raises(dataclasses.FrozenInstanceError):
+            setattr(spec, field, None)
+    told = read_site_as_told(path, argparse.Namespace(accept_misfit=True))
+    assert told.registration.accept_misfit and told.registration.tolerance_m == 0.01
+    assert told.energy == site.energy and not read_site(path).registration.accept_misfit
+
+
 def test_glob_matching_nothing(tmp_path: Path) -> None:
     with pytest.raises(SiteFileError, match=r"scans\[0\].bundle: pattern 'nothing/\*' matches no folder"):
         read_site(write_site(tmp_path, ["nothing/*"]))
@@ -71,7 +97,7 @@ def test_the_documented_site_file_example_reads(demo: dict, tmp_path: Path) -> N
         _w.simplefilter("error")  # no unknown field in the documented example
         site = read_site(path)
     assert site.name == "Kestrel Lane Overpass" and site.map is not None and site.alignment is not None
-    assert [c.name for c in site.classes] == ["watch", "suspect", "probable"]
+    assert [c.name for c in site.zones.classes] == ["watch", "suspect", "probable"]
     assert site.dxf.base is not None and site.merge is not None and site.elements is not None
 
 

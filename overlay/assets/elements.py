@@ -17,7 +17,7 @@ from overlay.geometry.crs import reproject
 from overlay.geometry.transforms import Similarity
 
 if TYPE_CHECKING:
-    from overlay.io.site import Elements
+    from overlay.settings import Elements
     from overlay.zones.zone import Zone
 
 

@@ -113,7 +113,7 @@ def check_layer_name(name: str, asset_layer: str | None, *, source: str | None =
 
 def findings_fields(result: "RunResult") -> dict[str, str]:
     """Our fields and their GeoPackage types: the fixed ones and one contour area per class."""
-    return {**FIELDS, **{area_field(c.name): "REAL" for c in result.site.classes}}
+    return {**FIELDS, **{area_field(c.name): "REAL" for c in result.site.zones.classes}}
 
 
 def findings_rows(result: "RunResult") -> tuple[list[dict[str, Any]], list[Any]]:
@@ -126,26 +126,26 @@ def findings_rows(result: "RunResult") -> tuple[list[dict[str, Any]], list[Any]]
     spec = result.site.merge
     assert spec is not None
     key = run_key(result)
-    areas = [area_field(c.name) for c in result.site.classes]
+    areas = [area_field(c.name) for c in result.site.zones.classes]
     by_zone: dict[str, list[dict[str, Any]]] = {}
     for p in result.asset_pieces:
         by_zone.setdefault(p["zone_id"], []).append(p)
     rows, geoms = [], []
 
     def row(p: dict[str, Any], zone: "Zone", zone_id: str, cls: str, class_areas: dict[str, float | None]) -> None:
-        level = next(c.threshold_db for c in result.site.classes if c.name == cls)
+        level = next(c.threshold_db for c in result.site.zones.classes if c.name == cls)
         rows.append({
             "asset_id": p["asset_id"], "source": SOURCE, "scan_id": p["scan_id"], "zone_id": zone_id,
             "defect_id": p["defect_id"], "class": cls, "threshold_db": level,
-            "affected_area_m2": round(p["area_m2"], 6), "basis": result.site.basis,
+            "affected_area_m2": round(p["area_m2"], 6), "basis": result.site.repair.basis,
             "peak_hz": _real(zone.peak_hz), "depth_low_m": _real(zone.depth_low_m), "depth_high_m": _real(zone.depth_high_m),
             "confidence": zone.confidence, "inspected": _datetime(zone.surveyed), "method": spec.method, "run_key": key,
             **{k: None if v is None else round(v, 6) for k, v in class_areas.items()},
         })
         geoms.append(p["geometry"])
 
-    if result.site.basis == "outline":
-        for d in defects(result.zones, result.site.classes):
+    if result.site.repair.basis == "outline":
+        for d in defects(result.zones, result.site.zones.classes):
             for p in by_zone.get(d.defect_id, []):  # the lowest-class zone's pieces: the outline cut by each asset
                 on_asset = dict.fromkeys(areas, 0.0)
                 for z in d.zones:
@@ -343,7 +343,7 @@ def findings_style(result: "RunResult") -> styles.LayerStyle:
     """The findings layer drawn by class in the palette every output shares."""
     cls = palette.for_site(result.site)
     return styles.LayerStyle("findings by class", attr="class", categories=styles.class_categories(
-        [(c.name, c.threshold_db, cls[c.name].rgb) for c in result.site.classes]))
+        [(c.name, c.threshold_db, cls[c.name].rgb) for c in result.site.zones.classes]))
 
 
 def as_multi(g: Any) -> MultiPolygon:

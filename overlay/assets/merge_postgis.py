@@ -227,7 +227,7 @@ def _create(con: "psycopg.Connection", schema: str, name: str, fields: dict[str,
         i=sql.Identifier(f"{name}_geom_idx"[:63]), t=t))
     con.execute(sql.SQL("COMMENT ON TABLE {} IS {}").format(
         t, sql.Literal("findings of acoustic non-contact scans (written by overlay)")))
-    notes = {**FIELD_NOTES, **{area_field(c.name): area_note(c.name) for c in result.site.classes}}
+    notes = {**FIELD_NOTES, **{area_field(c.name): area_note(c.name) for c in result.site.zones.classes}}
     notes["geom"] = "the finding's outline, cut by the asset it lies on"
     for n, text in notes.items():
         if n in fields or n == "geom":

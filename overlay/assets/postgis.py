@@ -24,7 +24,7 @@ if TYPE_CHECKING:
     import psycopg
 
     from overlay.assets.elements import AssetTable
-    from overlay.io.site import Elements
+    from overlay.settings import Elements
 
 CONNECT_TIMEOUT_S = 10
 

@@ -191,7 +191,7 @@ def calibrate(result: "RunResult", sounding: "Sounding", now: dt.datetime | None
                       sounding_sha256=file_sha256(sounding.source), sounding_dates=sounding.dates,
                       made=(now or dt.datetime.now(dt.timezone.utc)).strftime("%Y-%m-%dT%H:%M:%SZ"),
                       elements=tuple(sorted(covered)), looked_at_m2=looked_at.area * u2)
-    class_levels = [(c.name, c.threshold_db) for c in site.classes]
+    class_levels = [(c.name, c.threshold_db) for c in site.zones.classes]
     lowest = class_levels[0][1]
     if sounding.polygons:
         traced = shapely.union_all(list(sounding.polygons))
@@ -265,7 +265,7 @@ def suggested_classes(result: "RunResult", cal: Calibration) -> str:
     lines = [f"# suggested by `overlay calibrate` from {cal.sounding} (sha256 {cal.sounding_sha256[:12]}…), "
              f"{cal.made}; AUC {cal.auc:.3f}, {cal.n_points} sounding points",
              "# a suggestion, not applied: check it against the engineer's judgement before pasting"]
-    names = [c.name for c in result.site.classes]
+    names = [c.name for c in result.site.zones.classes]
     if site is None or site.youden_db is None:
         return "\n".join(lines + ["# no suggestion: the sounding points hold no hollow or no sound verdict"]) + "\n"
     levels = [site.sensitive_db, site.youden_db, site.specific_db] if len(names) == 3 else [site.youden_db]
@@ -279,7 +279,7 @@ def suggested_classes(result: "RunResult", cal: Calibration) -> str:
     why = [f"still finds {TARGET_SENSITIVITY:.0%} of the hollow points", "best agreement (Youden's J)",
            f"{TARGET_SPECIFICITY:.0%} of the sound points read below it"]
     lines += ["# replace the site's [[zones.classes]] with these, and add to its [zones] table the line",
-              f'# calibration = "<path to {result.site.basename}-calibration.json>"  (runs then record it)']
+              f'# calibration = "<path to {result.site.outputs.basename}-calibration.json>"  (runs then record it)']
     for name, level, reason in zip(names, levels, why):
         lines += ["", "[[zones.classes]]", f'name = "{name}"', f"threshold_db = {level:g}  # {reason}"]
     return "\n".join(lines) + "\n"

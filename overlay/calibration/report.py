@@ -148,7 +148,7 @@ def pictures_of(result: "RunResult", cal: Calibration) -> dict[str, bytes]:
             marks.append((1 - t.specificity, t.sensitivity, f"best {site.youden_db:g} dB"))
         out["roc"] = pictures.roc_curve(cal.roc_fpr, cal.roc_tpr, None if cal.auc != cal.auc else cal.auc,
                                         [m for m in marks if m[0] == m[0] and m[1] == m[1]])
-    lowest = result.site.classes[0].threshold_db
+    lowest = result.site.zones.classes[0].threshold_db
     agree = None
     pts = cal.point_xy if cal.point_xy is not None else np.zeros((0, 2))
     if cal.point_ver is not None and cal.point_hollow is not None:
@@ -163,7 +163,7 @@ def write_disagreements(path: Path, result: "RunResult", cal: Calibration) -> No
 
     move, crs = to_output_frame(result)
     u2 = result.unit_m ** 2
-    lowest = result.site.classes[0].threshold_db
+    lowest = result.site.zones.classes[0].threshold_db
     dis = cal.disagreements
     write_layer(path, Layer("disagreements", {
         "kind": np.array([k for k, _, _ in dis], dtype=object),

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import argparse
-import dataclasses
 from pathlib import Path
 
 
@@ -39,7 +38,7 @@ def execute(args: argparse.Namespace) -> int:
     from overlay.calibration.report import output_names, write_all
     from overlay.calibration.sounding import read_sounding
     from overlay.campaign import run_campaign
-    from overlay.io.site import read_site
+    from overlay.cli.common import read_site_as_told
     from overlay.outputs.staging import Staged
     from overlay.outputs.write import (
         check_not_inputs,
@@ -48,9 +47,7 @@ def execute(args: argparse.Namespace) -> int:
         run_inputs,
     )
 
-    site = read_site(args.site)
-    if args.accept_misfit:
-        site = dataclasses.replace(site, accept_misfit=True)
+    site = read_site_as_told(args.site, args)
     check_out_dir(args.out)
     c = run_campaign(site, cache_dir=args.cache or args.out / ".overlay-cache", strict=True)
     assert c.result is not None
@@ -64,7 +61,7 @@ def execute(args: argparse.Namespace) -> int:
         raise UsageError(f"--elements names {', '.join(unknown)}, which no scan of the site has "
                          f"(scanned: {', '.join(sorted({s.element for s in result.scans if s.element}))})")
     cal = calibrate(result, sounding, sounded=covered)
-    names = output_names(site.basename)
+    names = output_names(site.outputs.basename)
     if not cal.tables:
         names.pop("roc")  # traced areas only: no verdict points, no ROC curve
     finals = {k: args.out / v for k, v in names.items()}

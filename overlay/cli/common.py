@@ -8,7 +8,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING
 
 if TYPE_CHECKING:  # the library is imported when a command runs, not to parse its arguments
-    from overlay.io.site import Site
+    from overlay.settings import Site
 
 
 def add_output_options(p: argparse.ArgumentParser, default_out: str, *, overwrite_option: bool = True) -> None:
@@ -34,6 +34,18 @@ def add_output_options(p: argparse.ArgumentParser, default_out: str, *, overwrit
                    help="do not write findings into the owner's asset GeoPackage even if the site file says so")
     p.add_argument("--replace-findings", action="store_true",
                    help="let the merge remove more earlier findings of a scan than it adds (the zones really went)")
+
+
+def read_site_as_told(path: Path, args: argparse.Namespace) -> Site:
+    """The site file with the command line's overrides applied (a new value; the settings stay frozen)."""
+    import dataclasses
+
+    from overlay.io.site import read_site
+
+    site = read_site(path)
+    if args.accept_misfit:
+        site = dataclasses.replace(site, registration=dataclasses.replace(site.registration, accept_misfit=True))
+    return site
 
 
 def run_and_write(site: Site, out: Path, args: argparse.Namespace, *, overwrite: bool) -> int:

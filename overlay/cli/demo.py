@@ -3,10 +3,9 @@
 from __future__ import annotations
 
 import argparse
-import dataclasses
 from pathlib import Path
 
-from overlay.cli.common import add_output_options, run_and_write
+from overlay.cli.common import add_output_options, read_site_as_told, run_and_write
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
@@ -19,13 +18,10 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 def execute(args: argparse.Namespace) -> int:
     from overlay.demo import generate
-    from overlay.io.site import read_site
 
     out: Path = args.out
     site_path = generate(out / "site")
     if not args.quiet:
         print(f"demo site generated in {site_path.parent}")
-    site = read_site(site_path)
-    if args.accept_misfit:
-        site = dataclasses.replace(site, accept_misfit=True)
+    site = read_site_as_told(site_path, args)
     return run_and_write(site, out / "results", args, overwrite=True)

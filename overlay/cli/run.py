@@ -3,10 +3,9 @@
 from __future__ import annotations
 
 import argparse
-import dataclasses
 from pathlib import Path
 
-from overlay.cli.common import add_output_options, run_and_write
+from overlay.cli.common import add_output_options, read_site_as_told, run_and_write
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:
@@ -19,9 +18,6 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 
 def execute(args: argparse.Namespace) -> int:
-    from overlay.io.site import read_site
 
-    site = read_site(args.site)
-    if args.accept_misfit:
-        site = dataclasses.replace(site, accept_misfit=True)
+    site = read_site_as_told(args.site, args)
     return run_and_write(site, args.out, args, overwrite=args.overwrite)

@@ -40,8 +40,8 @@ from overlay.quantities import defects
 from overlay.units import LENGTH_TO_M
 
 if TYPE_CHECKING:
-    from overlay.io.site import DxfStyle
     from overlay.job import RunResult
+    from overlay.settings import DxfStyle
     from overlay.zones.zone import Zone
 
 APPID = "OVERLAY_ZONES"
@@ -367,7 +367,7 @@ def label_lines(result: "RunResult", d: Any) -> list[str]:
     Plain ASCII ("m2"): GDAL 3.6's DXF reader decodes R2013 text by the $DWGCODEPAGE of the
     header and garbles a UTF-8 "²"."""
     z, top = d.lowest, d.top
-    area = z.outline_area_m2 if result.site.basis == "outline" else z.area_m2
+    area = z.outline_area_m2 if result.site.repair.basis == "outline" else z.area_m2
     peak = f" {top.peak_hz:.0f} Hz" if top.peak_hz == top.peak_hz else ""
     return [clean_text(d.defect_id), clean_text(f"{d.highest_class} {area:.2f} m2{peak}")]
 
@@ -385,7 +385,7 @@ def _text_boxes(msp: Any) -> list[Polygon]:
 def _labels(msp: Any, result: "RunResult", move: Any, style: "DxfStyle", text: Lettering,
             obstacles: list[Polygon]) -> list[Any]:
     """One label per defect, placed by overlay.outputs.labels, in its highest class's colour (that class's text layer)."""
-    found = defects(result.zones, result.site.classes)
+    found = defects(result.zones, result.site.zones.classes)
     font = fonts.make_font(style.font, text.label)
     items, lines = [], {}
     for d in found:
@@ -430,7 +430,7 @@ def _legend_and_note(msp: Any, result: "RunResult", style: "DxfStyle", text: Let
     h = text.note
     x, y = box[0], box[1] - 4 * h
     cls = palette.for_site(site)
-    for i, zc in enumerate(site.classes):
+    for i, zc in enumerate(site.zones.classes):
         yy = y - i * 2 * h
         sq = Polygon([(x, yy), (x + 1.5 * h, yy), (x + 1.5 * h, yy + 1.5 * h), (x, yy + 1.5 * h)])
         hatch = msp.add_hatch(color=cls[zc.name].aci, dxfattribs={"layer": note})
@@ -443,10 +443,10 @@ def _legend_and_note(msp: Any, result: "RunResult", style: "DxfStyle", text: Let
         f"Screening zones from acoustic scans, run {result.started}, overlay {result.tool_version}, "
         f"plot scale 1:{text.scale}",
         "Long dashes: estimated defect outline. Heavy rectangles: repair footprint "
-        f"(margin {site.margin_m:g} m, basis {site.basis}). Dotted: scan extent.",
+        f"(margin {site.repair.margin_m:g} m, basis {site.repair.basis}). Dotted: scan extent.",
         *CAUTIONS,
     ]
-    top = y - len(site.classes) * 2 * h - h
+    top = y - len(site.zones.classes) * 2 * h - h
     width = max(box[2] - box[0], 120 * text.per_mm)
     msp.add_mtext("\\P".join(clean_text(line) for line in lines),
                   dxfattribs={"layer": note, "char_height": h, "style": style.text_style,

@@ -91,7 +91,7 @@ class GeoPackageExporter:
         con = sqlite3.connect(path)
         try:
             with con:
-                gpkg_sql.describe_columns(con, FIELD_DOCS, enums={("zones", "class"): [c.name for c in result.site.classes]},
+                gpkg_sql.describe_columns(con, FIELD_DOCS, enums={("zones", "class"): [c.name for c in result.site.zones.classes]},
                                           ranges={("zones", "confidence"): (0.0, 1.0)})
                 found = gpkg_sql.layers(con)
                 for name, style in layer_styles(result).items():
@@ -142,7 +142,7 @@ def layers(result: "RunResult") -> list[Layer]:
 def layer_styles(result: "RunResult") -> dict[str, styles.LayerStyle]:
     """The default style of each layer: zones by class in the shared palette, the rest by kind."""
     cls = palette.for_site(result.site)
-    by_class = styles.class_categories([(c.name, c.threshold_db, cls[c.name].rgb) for c in result.site.classes])
+    by_class = styles.class_categories([(c.name, c.threshold_db, cls[c.name].rgb) for c in result.site.zones.classes])
 
     def aliases(layer: str, fields: list[str]) -> tuple[tuple[str, str], ...]:
         return tuple((f, FIELD_DOCS[layer][f][0]) for f in fields if f in FIELD_DOCS.get(layer, {}))
@@ -324,9 +324,9 @@ def _runs(result: "RunResult") -> Layer:
             "fit_params": json.dumps(s.fit.transform.params()),
             "fit_rms": s.fit.rms,
             "fit_max": s.fit.worst[1],
-            "fit_tolerance_m": result.site.tolerance_m,
+            "fit_tolerance_m": result.site.registration.tolerance_m,
             "fit_passed": bool(s.fit_passed),
-            "fit_override": bool(result.site.accept_misfit and not s.fit_passed),
+            "fit_override": bool(result.site.registration.accept_misfit and not s.fit_passed),
             "calibration_file": cal.get("file", ""),
             "calibration_sha256": cal.get("file_sha256", ""),
             "calibration_made": cal.get("made", ""),

@@ -25,7 +25,7 @@ class QuantitiesCsvExporter:
     description = "per defect (at its highest class), element and asset: affected area, repair footprint, volume (CSV)"
 
     def write(self, result: "RunResult", path: Path) -> None:
-        cols = list(COLUMNS[:-1]) + list(class_columns(result.site.classes)) + [COLUMNS[-1]]
+        cols = list(COLUMNS[:-1]) + list(class_columns(result.site.zones.classes)) + [COLUMNS[-1]]
         with path.open("w", newline="", encoding="utf-8") as fh:
             w = csv.DictWriter(fh, fieldnames=cols, restval="")
             w.writeheader()

@@ -21,7 +21,7 @@ from overlay.errors import BundleWarning, RegistrationError
 from overlay.geometry.fits import MIN_POINTS, Fit, check_fit, fit_points
 from overlay.geometry.transforms import Projective, Transform
 from overlay.io.bundle import Scan
-from overlay.io.site import ScanEntry, Site
+from overlay.settings import ScanEntry, Site
 from overlay.signal.incidence import cos_incidence_from_head
 from overlay.units import LENGTH_TO_M
 
@@ -98,7 +98,7 @@ def cos_incidence_from_homography(h: Projective, tangent_xy: np.ndarray, drawing
 
 def choose_model(scan: Scan, entry: ScanEntry, site: Site, n_targets: int) -> tuple[str, str]:
     """(model, working frame): the site file's or scan's choice, else by scan kind and target count."""
-    asked = entry.model or site.model
+    asked = entry.model or site.registration.model
     if scan.kind == "surface":
         model = "similarity" if asked == "auto" else asked
         return model, "surface"
@@ -116,7 +116,7 @@ def _control(scan: Scan, site: Site, src: str) -> tuple[list[str], list[tuple[fl
             continue
         if t.name in site.control_points and t.drawing is not None:
             gap = float(np.hypot(*np.subtract(site.control_points[t.name], t.drawing)))
-            if gap > site.tolerance_m / LENGTH_TO_M[site.drawing_unit]:
+            if gap > site.registration.tolerance_m / LENGTH_TO_M[site.drawing_unit]:
                 warnings.warn(f"{src}: target {t.name}: site file and bundle differ by {gap:.4f}; using the site file",
                               BundleWarning, stacklevel=3)
         names.append(t.name)
@@ -152,7 +152,7 @@ def register(scan: Scan, entry: ScanEntry, site: Site) -> Registration:
     except RegistrationError as exc:
         raise RegistrationError(exc.problem, source=src, field="targets") from exc
     check_scale(fit, frame, scan, u, at, src)
-    passed = check_fit(fit, site.tolerance_m / u, site.drawing_unit, accept=site.accept_misfit, source=src)
+    passed = check_fit(fit, site.registration.tolerance_m / u, site.drawing_unit, accept=site.registration.accept_misfit, source=src)
     targets = [TargetResult(n, (float(s[0]), float(s[1])), (float(d[0]), float(d[1])), (float(r[0]), float(r[1])), float(lo))
                for n, s, d, r, lo in zip(names, seen, drawing, fit.residuals.tolist(), fit.leave_one_out)]
     cos, how = _incidence(scan, entry, frame, fit, working, u)

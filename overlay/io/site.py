@@ -1,13 +1,14 @@
-"""The site file (TOML, ``overlay-site/1``): everything a run needs besides the bundles.
+"""The site file (TOML, ``overlay-site/1``): read and checked into ``overlay.settings.Site``.
 
-See docs/site-file.md for every field.  Paths in the file are relative to it.
+See docs/site-file.md for every field.  Paths in the file are relative to it.  Each table has its own
+reader; ``read_site`` checks what spans tables (merge needs elements and a map, control points name
+targets).
 """
 
 from __future__ import annotations
 
 import difflib
 import glob
-from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -17,163 +18,39 @@ from overlay.errors import SiteFileError
 from overlay.io.bundle import target_names
 from overlay.io.tomlio import Fields, load_toml
 from overlay.quantities import area_field
+from overlay.settings import (
+    DEFAULT_CLASSES,
+    DEFAULT_FORMATS,
+    LABEL_HEIGHT_MM,
+    NOTE_HEIGHT_MM,
+    REPAIR_MARGIN_M,
+    SHEETS,
+    TOLERANCE_M,
+    AlignmentSpec,
+    DxfStyle,
+    Elements,
+    EnergySpec,
+    MapFrame,
+    MergeSpec,
+    Monument,
+    OutputSpec,
+    QualitySpec,
+    RegistrationSpec,
+    RepairSpec,
+    ScanEntry,
+    Site,
+    ZoneClass,
+    ZoneSpec,
+)
 from overlay.signal.energy import DEFAULT_PERCENTILE, REFERENCES
 from overlay.units import LENGTH_TO_M
 from overlay.zones.plate import aci318_modulus_pa
 from overlay.zones.zone import Concrete
 
 FORMAT = "overlay-site/1"
-DEFAULT_CLASSES = (("watch", 6.0), ("suspect", 10.0), ("probable", 15.0))
-DEFAULT_FORMATS = ("dxf", "gpkg", "quantities-csv")
-# common practice (from memory; docs/references.md, Inspection practice): a repair outline extends 150 mm beyond the sounded area;
-# UFGS 03 93 10 asks at least 25 mm for the saw cut
-REPAIR_MARGIN_M = 0.15
 MAX_MARGIN_M = 2.0  # a cutting margin beyond this is a unit mistake (mm for m), not a margin
 MODEL_CHOICES = ("auto", "similarity", "affine", "projective")
-TOLERANCE_M = 0.02  # worst control-target residual allowed: 20 mm on the structure, whatever the drawing unit
 SCALE_RANGE = (0.9, 1.1)  # a declared map scale outside this is a unit mistake, not a projection's scale factor
-
-
-@dataclass(frozen=True)
-class ZoneClass:
-    name: str
-    threshold_db: float
-
-
-@dataclass(frozen=True)
-class Monument:
-    name: str
-    drawing: tuple[float, float]
-    map: tuple[float, float]
-
-
-@dataclass(frozen=True)
-class MapFrame:
-    """Where the drawing sits in a projected CRS: declared placement or monuments."""
-
-    crs: str
-    origin: tuple[float, float] | None = None
-    bearing_deg: float = 90.0
-    scale: float = 1.0
-    monuments: tuple[Monument, ...] = ()
-    tolerance_m: float = 0.05
-
-
-@dataclass(frozen=True)
-class Elements:
-    """Where the element outlines (for area shares) come from: a layer of a GIS file (``source``) or a
-    table of the owner's PostgreSQL/PostGIS database (``database``: a libpq connection string, URI or
-    ``service=name``, never with a password; ``schema``)."""
-
-    source: Path | None
-    layer: str | None = None
-    id_field: str = "asset_id"
-    database: str | None = None
-    schema: str = "public"
-
-    @property
-    def where(self) -> str:
-        """The asset register as messages name it."""
-        if self.database is not None:
-            from overlay.assets.postgis import describe_database
-
-            return describe_database(self.database)
-        return str(self.source)
-
-
-SHEETS = ("A0", "A1", "A2", "A3", "A4")
-# lettering heights on paper: 2.5 mm for labels, 1.8 mm for notes — the two smallest nominal heights of
-# ISO 3098-1 (1.8, 2.5, 3.5, 5, 7, 10 … mm; from memory), common drafting practice for what must stay legible
-LABEL_HEIGHT_MM = 2.5
-NOTE_HEIGHT_MM = 1.8
-
-
-@dataclass(frozen=True)
-class DxfStyle:
-    """How zones are drawn: our layer prefix, colours (ACI), the sheet and plot scale that size every text,
-    fill, and an optional base drawing."""
-
-    base: Path | None = None
-    base_unit: str | None = None  # for a base drawing whose $INSUNITS says nothing
-    prefix: str = "OVL"
-    colours: tuple[tuple[str, int], ...] = ()
-    sheet: str = "A3"
-    plot_scale: int | None = None  # 1:N; None: the smallest usual scale at which the structure fits the sheet
-    label_height_mm: float = LABEL_HEIGHT_MM
-    note_height_mm: float = NOTE_HEIGHT_MM
-    text_style: str = "OVL-TEXT"
-    font: str = "DejaVuSans.ttf"
-    fill: str = "SOLID"
-    fill_transparency: float = 0.6
-    reuse_layers: bool = False
-
-
-@dataclass(frozen=True)
-class MergeSpec:
-    """Where findings go in the owner's asset GeoPackage ([elements] names the file and its asset layer)."""
-
-    findings_layer: str = "acoustic_findings"
-    method: str = "acoustic non-contact scan, vibration energy ratio"
-    backup: bool = True
-    keep_backups: int = KEEP_BACKUPS  # besides the oldest (the owner's original), the newest N backups
-
-
-@dataclass(frozen=True)
-class AlignmentSpec:
-    """A reference line for stations: vertices in the drawing or map frame, and its start station."""
-
-    points: tuple[tuple[float, float], ...]
-    frame: str = "drawing"
-    start_station_m: float = 0.0
-
-
-@dataclass(frozen=True)
-class ScanEntry:
-    """One [[scans]] entry: the bundle and what the site file adds to it."""
-
-    bundle: Path
-    element: str | None = None
-    healthy_region: tuple[tuple[float, float], ...] | None = None
-    healthy_region_frame: str = "drawing"
-    head_xy: tuple[float, float] | None = None
-    model: str | None = None
-    tilt_deg: tuple[float, float] | None = None
-
-
-@dataclass(frozen=True)
-class Site:
-    path: Path
-    name: str
-    structure: str
-    drawing_unit: str
-    scans: list[ScanEntry]
-    classes: list[ZoneClass]
-    control_points: dict[str, tuple[float, float]] = field(default_factory=dict)
-    map: MapFrame | None = None
-    tolerance_m: float = TOLERANCE_M
-    accept_misfit: bool = False
-    model: str = "auto"
-    reference: str = "auto"
-    percentile: float = DEFAULT_PERCENTILE
-    incidence_correction: bool = True
-    min_signal_level: float = 0.0
-    min_snr_db: float | None = None
-    min_area_m2: float = 0.01
-    concrete: Concrete = field(default_factory=Concrete)
-    margin_m: float = REPAIR_MARGIN_M
-    footprint: str = "aligned"
-    basis: str = "outline"
-    elements: Elements | None = None
-    alignment: AlignmentSpec | None = None
-    dxf: DxfStyle = field(default_factory=DxfStyle)
-    merge: MergeSpec | None = None
-    basename: str = "overlay"
-    formats: tuple[str, ...] = DEFAULT_FORMATS
-    calibration: Path | None = None  # the calibration the class levels come from (overlay calibrate's JSON)
-
-    @property
-    def folder(self) -> Path:
-        return self.path.parent
 
 
 def read_site(path: str | Path) -> Site:
@@ -183,30 +60,89 @@ def read_site(path: str | Path) -> Site:
     fmt = doc.string("format", required=True)
     if fmt != FORMAT:
         raise doc.fail("format", f"unsupported format {fmt!r}; this version reads {FORMAT!r}")
-
     s = _table(doc, "site", required=True)
     name = s.string("name", required=True) or ""
     structure = s.string("structure", "") or ""
     unit = s.choice("drawing_unit", tuple(LENGTH_TO_M), default="m")
+    s.reject_unknown()
 
+    site = Site(
+        path=path,
+        name=name,
+        structure=structure,
+        drawing_unit=unit,
+        scans=_scans(doc, path),
+        control_points=_control_points(doc),
+        registration=_registration(doc),
+        energy=_energy(doc),
+        quality=_quality(doc),
+        zones=_zones(doc, path),
+        concrete=_concrete(doc),
+        repair=_repair(doc),
+        map=_map(doc),
+        elements=_elements(doc, path),
+        alignment=_alignment(doc),
+        dxf=_dxf(doc, path),
+        merge=_merge(doc),
+        outputs=_outputs(doc),
+    )
+    doc.reject_unknown()
+    _check_across_tables(site, doc)
+    _check_control_points(site.control_points, site.scans, path)
+    return site
+
+
+def _check_across_tables(site: Site, doc: Fields) -> None:
+    """What one table asks of another: a merge needs the asset register and a map; 'region' needs regions."""
+    if site.merge is not None:
+        if site.elements is None:
+            raise doc.fail("merge", "needs [elements] naming the owner's asset GeoPackage and layer")
+        if site.map is None:
+            raise doc.fail("merge", "needs a [map] frame: findings go into the owner's GIS in its CRS")
+        if site.elements.source is not None and not is_geopackage_file(site.elements.source):
+            raise doc.fail("merge", f"the [elements] source {site.elements.source.name} is not a GeoPackage; "
+                           "findings are merged into a GeoPackage or a PostgreSQL database")
+        check_layer_name(site.merge.findings_layer, site.elements.layer, source=str(site.path))
+    if site.energy.reference == "region":
+        missing = [str(e.bundle) for e in site.scans if e.healthy_region is None]
+        if missing:
+            raise SiteFileError(f"'region' needs healthy_region on every scan; missing for {', '.join(missing)}",
+                                source=site.path, field="energy.reference")
+
+
+def _registration(doc: Fields) -> RegistrationSpec:
     reg = _table(doc, "registration")
-    tolerance = reg.number("tolerance_m", TOLERANCE_M, positive=True) or TOLERANCE_M
-    accept = bool(_bool(reg, "accept_misfit", False))
-    model = reg.choice("model", MODEL_CHOICES, default="auto")
+    spec = RegistrationSpec(
+        tolerance_m=reg.number("tolerance_m", TOLERANCE_M, positive=True) or TOLERANCE_M,
+        accept_misfit=_bool(reg, "accept_misfit", False),
+        model=reg.choice("model", MODEL_CHOICES, default="auto"),
+    )
+    reg.reject_unknown({"tolerance": "tolerance_m, in metres on the structure (it was in drawing units)"})
+    return spec
 
+
+def _energy(doc: Fields) -> EnergySpec:
     en = _table(doc, "energy")
     reference = en.choice("reference", REFERENCES, default="auto")
     percentile = en.number("percentile", DEFAULT_PERCENTILE, minimum=0.0) or 0.0
     if percentile > 100:
         raise en.fail("percentile", f"must lie in 0..100, got {percentile:g}")
-    incidence = _bool(en, "incidence_correction", True)
+    spec = EnergySpec(reference, percentile, _bool(en, "incidence_correction", True))
+    en.reject_unknown()
+    return spec
 
+
+def _quality(doc: Fields) -> QualitySpec:
     qt = _table(doc, "quality")
     min_level = qt.number("min_signal_level", 0.0, minimum=0.0) or 0.0
     if min_level > 1:
         raise qt.fail("min_signal_level", f"must lie in 0..1, got {min_level:g}")
-    min_snr = qt.number("min_snr_db")
+    spec = QualitySpec(min_level, qt.number("min_snr_db"))
+    qt.reject_unknown()
+    return spec
 
+
+def _zones(doc: Fields, path: Path) -> ZoneSpec:
     zt = _table(doc, "zones")
     min_area = zt.number("min_area_m2", 0.01, minimum=0.0) or 0.0
     classes = _classes(zt)
@@ -218,37 +154,23 @@ def read_site(path: str | Path) -> Site:
         if not calibration.is_file():
             raise zt.fail("calibration", f"file not found: {calibration}")
         read_calibration(calibration)  # a file that is not a calibration is refused now, not after the run
+    zt.reject_unknown()
+    return ZoneSpec(classes, min_area, calibration)
 
-    concrete = _concrete(doc)
+
+def _repair(doc: Fields) -> RepairSpec:
     rp = _table(doc, "repair")
     margin = rp.number("margin_m", REPAIR_MARGIN_M, minimum=0.0, maximum=MAX_MARGIN_M)
-    footprint = rp.choice("footprint", ("aligned", "rotated"), default="aligned")
-    basis = rp.choice("basis", ("outline", "contour"), default="outline")
-    elements = _elements(doc, path)
-    alignment = _alignment(doc)
-    dxf = _dxf(doc, path)
-    merge = _merge(doc)
-    map_frame = _map(doc)
-    if merge is not None:
-        if elements is None:
-            raise doc.fail("merge", "needs [elements] naming the owner's asset GeoPackage and layer")
-        if map_frame is None:
-            raise doc.fail("merge", "needs a [map] frame: findings go into the owner's GIS in its CRS")
-        if elements.source is not None and not is_geopackage_file(elements.source):
-            raise doc.fail("merge", f"the [elements] source {elements.source.name} is not a GeoPackage; "
-                           "findings are merged into a GeoPackage or a PostgreSQL database")
-        check_layer_name(merge.findings_layer, elements.layer, source=str(path))
+    spec = RepairSpec(
+        margin_m=margin if margin is not None else REPAIR_MARGIN_M,
+        footprint=rp.choice("footprint", ("aligned", "rotated"), default="aligned"),
+        basis=rp.choice("basis", ("outline", "contour"), default="outline"),
+    )
+    rp.reject_unknown()
+    return spec
 
-    cps: dict[str, tuple[float, float]] = {}
-    cp = doc.table_of("control_points")
-    if cp is not None:
-        for key in list(cp.table):
-            value = cp.pair(key)
-            assert value is not None
-            cps[key] = value
 
-    scans = _scans(doc, path)
-
+def _outputs(doc: Fields) -> OutputSpec:
     out = _table(doc, "outputs")
     basename = out.string("basename", "overlay") or "overlay"
     if any(c in basename for c in '/\\:*?"<>|') or basename.startswith("."):
@@ -256,45 +178,19 @@ def read_site(path: str | Path) -> Site:
     formats = out.raw("formats", list(DEFAULT_FORMATS))
     if not isinstance(formats, list) or not all(isinstance(f, str) for f in formats) or not formats:
         raise out.fail("formats", f"must be a non-empty list of exporter names, got {formats!r}")
+    out.reject_unknown()
+    return OutputSpec(basename, tuple(formats))
 
-    if reference == "region":
-        missing = [str(e.bundle) for e in scans if e.healthy_region is None]
-        if missing:
-            raise en.fail("reference", f"'region' needs healthy_region on every scan; missing for {', '.join(missing)}")
-    reg.reject_unknown({"tolerance": "tolerance_m, in metres on the structure (it was in drawing units)"})
-    for t in (doc, s, en, qt, zt, rp, out):
-        t.reject_unknown()
-    _check_control_points(cps, scans, path)
-    return Site(
-        path=path,
-        name=name,
-        structure=structure,
-        drawing_unit=unit,
-        scans=scans,
-        classes=classes,
-        control_points=cps,
-        map=map_frame,
-        tolerance_m=tolerance,
-        accept_misfit=accept,
-        model=model,
-        reference=reference,
-        percentile=percentile,
-        incidence_correction=incidence,
-        min_signal_level=min_level,
-        min_snr_db=min_snr,
-        min_area_m2=min_area,
-        concrete=concrete,
-        margin_m=margin if margin is not None else REPAIR_MARGIN_M,
-        footprint=footprint,
-        basis=basis,
-        elements=elements,
-        alignment=alignment,
-        dxf=dxf,
-        merge=merge,
-        basename=basename,
-        formats=tuple(formats),
-        calibration=calibration,
-    )
+
+def _control_points(doc: Fields) -> dict[str, tuple[float, float]]:
+    cps: dict[str, tuple[float, float]] = {}
+    cp = doc.table_of("control_points")
+    if cp is not None:
+        for key in list(cp.table):
+            value = cp.pair(key)
+            assert value is not None
+            cps[key] = value
+    return cps
 
 
 def _table(doc: Fields, key: str, *, required: bool = False) -> Fields:
@@ -313,10 +209,10 @@ def _bool(t: Fields, key: str, default: bool) -> bool:
     return v
 
 
-def _classes(zt: Fields) -> list[ZoneClass]:
+def _classes(zt: Fields) -> tuple[ZoneClass, ...]:
     raw = zt.raw("classes")
     if raw is None:
-        return [ZoneClass(n, t) for n, t in DEFAULT_CLASSES]
+        return tuple(ZoneClass(n, t) for n, t in DEFAULT_CLASSES)
     if not isinstance(raw, list) or not raw:
         raise zt.fail("classes", "must be a non-empty array of tables [[zones.classes]]")
     out: list[ZoneClass] = []
@@ -333,10 +229,10 @@ def _classes(zt: Fields) -> list[ZoneClass]:
     levels = [c.threshold_db for c in out]
     if levels != sorted(levels) or len(set(levels)) != len(levels):
         raise zt.fail("classes", f"thresholds must rise strictly from class to class, got {levels}")
-    return out
+    return tuple(out)
 
 
-def _scans(doc: Fields, path: Path) -> list[ScanEntry]:
+def _scans(doc: Fields, path: Path) -> tuple[ScanEntry, ...]:
     raw = doc.raw("scans")
     if not isinstance(raw, list) or not raw:
         raise doc.fail("scans", "at least one [[scans]] entry with a bundle path is required")
@@ -361,7 +257,7 @@ def _scans(doc: Fields, path: Path) -> list[ScanEntry]:
         else:
             out.append(ScanEntry(full, **extra))
         t.reject_unknown()
-    return out
+    return tuple(out)
 
 
 def _concrete(doc: Fields) -> Concrete:
@@ -538,7 +434,7 @@ def _map(doc: Fields) -> MapFrame | None:
     return MapFrame(crs, origin, bearing, scale, tuple(monuments), tol)
 
 
-def _check_control_points(cps: dict[str, tuple[float, float]], scans: list[ScanEntry], path: Path) -> None:
+def _check_control_points(cps: dict[str, tuple[float, float]], scans: tuple[ScanEntry, ...], path: Path) -> None:
     """Every [control_points] name must be a target of some bundle: a misspelt name would leave its
     target without drawing coordinates and change the fit."""
     if not cps:

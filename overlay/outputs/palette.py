@@ -13,7 +13,7 @@ from dataclasses import dataclass
 from typing import TYPE_CHECKING, Sequence
 
 if TYPE_CHECKING:
-    from overlay.io.site import Site
+    from overlay.settings import Site
 
 RGB = tuple[int, int, int]
 
@@ -70,7 +70,7 @@ def class_styles(names: Sequence[str], aci_overrides: dict[str, int] | None = No
 
 def for_site(site: "Site") -> dict[str, ClassStyle]:
     """The class styles of a site: its classes in order, with its [dxf] colour choices."""
-    return class_styles([c.name for c in site.classes], dict(site.dxf.colours))
+    return class_styles([c.name for c in site.zones.classes], dict(site.dxf.colours))
 
 
 def hex_of(rgb: RGB) -> str:

@@ -199,7 +199,7 @@ def scan_preview(result: "RunResult", scan: "ScanResult") -> bytes:
             p = z.contour.representative_point()
             ax.annotate(z.zone_id, (p.x, p.y), fontsize=7, ha="center", color="white",
                         bbox={"boxstyle": "round,pad=0.2", "fc": "black", "alpha": 0.6, "lw": 0})
-    for c in result.site.classes:
+    for c in result.site.zones.classes:
         colour, ls = _class_style(result, c.name)
         ax.plot([], [], color=colour, ls=ls, label=f"{c.name} >= {c.threshold_db:g} dB")
     for t in scan.targets:
@@ -225,7 +225,7 @@ SPECTRUM_SIZE = (5.0, 2.4)
 
 def ver_scale(result: "RunResult") -> tuple[float, float]:
     """The one VER colour scale of a campaign's compact pictures: 0 dB to 5 dB above the top class."""
-    return 0.0, max(c.threshold_db for c in result.site.classes) + 5.0
+    return 0.0, max(c.threshold_db for c in result.site.zones.classes) + 5.0
 
 
 def scan_thumbnail(result: "RunResult", scan: "ScanResult") -> bytes:
@@ -247,7 +247,7 @@ def scan_thumbnail(result: "RunResult", scan: "ScanResult") -> bytes:
     if bad.any():
         ax.plot(xy[bad, 0], xy[bad, 1], "x", color="black", ms=3, mew=0.6)
     zones = zones_of(result, scan)
-    for c in result.site.classes:
+    for c in result.site.zones.classes:
         colour, ls = _class_style(result, c.name)
         rings = [np.asarray(r.coords) for z in zones if z.class_name == c.name
                  for part in shapely.get_parts(z.contour) for r in (part.exterior, *part.interiors)]
@@ -300,7 +300,7 @@ def defect_spectrum(result: "RunResult", defect: "Defect") -> bytes:
 
 def _contour_areas(result: "RunResult", defect: "Defect") -> str:
     """Each class contour area of a defect, at the tables' precision, so pictures and tables read the same."""
-    return ", ".join(f"{c.name} {defect.contour_area_m2(c.name):.4f}" for c in result.site.classes
+    return ", ".join(f"{c.name} {defect.contour_area_m2(c.name):.4f}" for c in result.site.zones.classes
                      if defect.contour_area_m2(c.name) > 0)
 
 
@@ -412,7 +412,7 @@ def element_map(result: "RunResult", element: str, drawing_lines: list[np.ndarra
             x0, _, x1, y1 = z.footprint.bounds
             ax.annotate(z.zone_id, ((x0 + x1) / 2, y1), fontsize=7, ha="center", va="bottom")
     handles = [Patch(color=_class_style(result, c.name)[0], alpha=0.45, label=f"{c.name} >= {c.threshold_db:g} dB")
-               for c in result.site.classes] + [
+               for c in result.site.zones.classes] + [
         Line2D([], [], color=palette.hex_of(palette.DEFECT_RGB), ls="--", label="defect outline"),
         Line2D([], [], color=palette.hex_of(palette.REPAIR_RGB), label="repair footprint")]
     ax.legend(handles=handles, loc="upper left", fontsize=7, framealpha=0.85)
@@ -444,7 +444,7 @@ def site_map(result: "RunResult", drawing_lines: list[np.ndarray] | None = None)
         if z.defect_id == z.zone_id:
             _rings(ax, z.footprint, color=palette.hex_of(palette.REPAIR_RGB), lw=0.8)
     handles = [Patch(color=_class_style(result, c.name)[0], alpha=0.5, label=f"{c.name} >= {c.threshold_db:g} dB")
-               for c in result.site.classes] + [Line2D([], [], color=palette.hex_of(palette.REPAIR_RGB), label="repair footprint")]
+               for c in result.site.zones.classes] + [Line2D([], [], color=palette.hex_of(palette.REPAIR_RGB), label="repair footprint")]
     ax.set_aspect("equal")
     ax.autoscale_view()
     ax.set_xlabel(f"drawing x ({result.site.drawing_unit})")

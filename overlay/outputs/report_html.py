@@ -95,9 +95,9 @@ def _head(result: "RunResult", title: str) -> list[str]:
 def _quantities(result: "RunResult", elements: set[str] | None = None) -> list[str]:
     site = result.site
     keep = (lambda r: True) if elements is None else (lambda r: r["element"] in elements)
-    basis = "the estimated defect outline" if site.basis == "outline" else "the lowest class contour"
+    basis = "the estimated defect outline" if site.repair.basis == "outline" else "the lowest class contour"
     parts = ["<h2>Repair quantities: each defect once, at the highest class it reaches</h2>",
-             f"<p>Priced on {basis}; cutting margin {site.margin_m:g} m; {html.escape(site.footprint)} footprints. "
+             f"<p>Priced on {basis}; cutting margin {site.repair.margin_m:g} m; {html.escape(site.repair.footprint)} footprints. "
              "A defect counts in one class only — its highest — so these rows may be added up. "
              "Depths are order-of-magnitude estimates.</p>",
              _table([r for r in element_rows(result) if keep(r)],
@@ -113,12 +113,12 @@ def _quantities(result: "RunResult", elements: set[str] | None = None) -> list[s
                                   _col("element_share_pct", "share", ".3f", "%"),
                                   _col("footprint_area_m2", "footprint", ".4f", "m²"),
                                   ("volume", "volume", lambda r: span(r["volume_low_m3"], r["volume_high_m3"], ".4f", "m³"))])]
-    cols = class_columns(site.classes)
+    cols = class_columns(site.zones.classes)
     parts += ["<h3>Defects</h3>",
-              _table([r for r in defect_rows(result.zones, site.classes, site.basis) if keep(r)],
+              _table([r for r in defect_rows(result.zones, site.zones.classes, site.repair.basis) if keep(r)],
                      [_col("defect_id", "defect"), _col("element", "element"), _col("class", "highest class"),
                       _col("affected_area_m2", "affected", ".4f", "m²"), _col("outline_basis", "outline from"),
-                      *[_col(c, f"{k.name} contour", ".4f", "m²") for c, k in zip(cols, site.classes)],
+                      *[_col(c, f"{k.name} contour", ".4f", "m²") for c, k in zip(cols, site.zones.classes)],
                       ("footprint", "footprint", lambda r: dims(r["footprint_length_m"], r["footprint_width_m"])),
                       ("depth", "depth", lambda r: span(r["depth_low_m"], r["depth_high_m"], ".3f", "m")),
                       _col("peak_hz", "peak", ".0f", "Hz"), _col("confidence", "confidence", ".2f")])]
@@ -158,7 +158,7 @@ def _scan(s: "ScanResult", result: "RunResult", img: Picture) -> list[str]:
              + (f"gate {esc(s.gate.describe())}; " if s.gate else "")
              + (f"reference {esc(s.reference.describe())}; " if s.reference else "")
              + f"incidence correction {esc(s.incidence)}.</p>",
-             f"<pre>{esc(s.fit_summary)}, tolerance {site.tolerance_m * 1000:g} mm, "
+             f"<pre>{esc(s.fit_summary)}, tolerance {site.registration.tolerance_m * 1000:g} mm, "
              f"{'passed' if s.fit_passed else 'MISFIT ACCEPTED BY OVERRIDE'}\n"
              f"{esc(fit_text(s, site.drawing_unit, result.unit_m))}\n" + esc("\n".join(s.fit.report(site.drawing_unit)))
              + "</pre>",
@@ -170,7 +170,7 @@ def _scan(s: "ScanResult", result: "RunResult", img: Picture) -> list[str]:
 def _defect_pictures(result: "RunResult", img: Picture, elements: set[str] | None = None) -> list[str]:
     from overlay.outputs.write import file_stem
 
-    rows = [r for r in defect_rows(result.zones, result.site.classes, result.site.basis)
+    rows = [r for r in defect_rows(result.zones, result.site.zones.classes, result.site.repair.basis)
             if elements is None or r["element"] in elements]
     return [img(f"defect-{file_stem(str(r['defect_id']))}", f"spectrum of defect {r['defect_id']}") for r in rows]
 

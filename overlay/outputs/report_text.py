@@ -54,22 +54,22 @@ def dims(length: object, width: object) -> str:
 def settings_lines(result: "RunResult") -> list[tuple[str, str]]:
     """The run's settings as a person reads them: a label and a value with its unit."""
     s = result.site
-    ref = {"auto": "auto (the local sound field where it spans more than 1 dB, else the percentile)"}.get(s.reference,
-                                                                                                       s.reference)
+    ref = {"auto": "auto (the local sound field where it spans more than 1 dB, else the percentile)"}.get(s.energy.reference,
+                                                                                                       s.energy.reference)
     return [
         ("drawing unit", s.drawing_unit),
-        ("reference", f"{ref}, percentile {s.percentile:g}"),
-        ("incidence correction", "on" if s.incidence_correction else "off"),
-        ("quality floors", f"signal level {s.min_signal_level:g}, SNR "
-                           f"{'off' if s.min_snr_db is None else f'{s.min_snr_db:g} dB'}"),
-        ("classes", ", ".join(f"{c.name} >= {c.threshold_db:g} dB" for c in s.classes)),
-        ("smallest zone", f"{s.min_area_m2:g} m2"),
+        ("reference", f"{ref}, percentile {s.energy.percentile:g}"),
+        ("incidence correction", "on" if s.energy.incidence_correction else "off"),
+        ("quality floors", f"signal level {s.quality.min_signal_level:g}, SNR "
+                           f"{'off' if s.quality.min_snr_db is None else f'{s.quality.min_snr_db:g} dB'}"),
+        ("classes", ", ".join(f"{c.name} >= {c.threshold_db:g} dB" for c in s.zones.classes)),
+        ("smallest zone", f"{s.zones.min_area_m2:g} m2"),
         ("concrete", f"E {s.concrete.modulus_pa / 1e9:.1f} GPa, density {s.concrete.density:g} kg/m3, "
                      f"Poisson's ratio {s.concrete.poisson:g}"),
-        ("repair", f"margin {s.margin_m:g} m, {s.footprint} footprints, priced on the "
-                   f"{'defect outline' if s.basis == 'outline' else 'lowest class contour'}"),
-        ("registration tolerance", f"{s.tolerance_m * 1000:g} mm on the structure"),
-        ("misfit accepted by override", "yes" if s.accept_misfit else "no"),
+        ("repair", f"margin {s.repair.margin_m:g} m, {s.repair.footprint} footprints, priced on the "
+                   f"{'defect outline' if s.repair.basis == 'outline' else 'lowest class contour'}"),
+        ("registration tolerance", f"{s.registration.tolerance_m * 1000:g} mm on the structure"),
+        ("misfit accepted by override", "yes" if s.registration.accept_misfit else "no"),
         ("map CRS", result.crs.to_string() if result.crs else "none (drawing frame only)"),
         ("scans", str(len(result.scans))),
         ("zones (class contours)", str(len(result.zones))),
@@ -90,7 +90,7 @@ def calibration_summary(result: "RunResult") -> str | None:
 def recorded_calibration(result: "RunResult") -> dict | None:
     from overlay.calibration.calibrate import read_calibration
 
-    return read_calibration(result.site.calibration) if result.site.calibration is not None else None
+    return read_calibration(result.site.zones.calibration) if result.site.zones.calibration is not None else None
 
 
 def calibration_rows(data: dict) -> list[dict[str, object]]:
@@ -164,7 +164,7 @@ def run_report(result: "RunResult") -> str:
         "CAUTIONS",
         cautions_text("  ! "),
         "",
-        f"classes: {', '.join(f'{c.name} >= {c.threshold_db:g} dB' for c in site.classes)} "
+        f"classes: {', '.join(f'{c.name} >= {c.threshold_db:g} dB' for c in site.zones.classes)} "
         "(nested: a higher class lies inside the lower one; do not add their areas)",
         ID_SCHEME,
         f"drawing unit: {unit}; map CRS: {result.crs.to_string() if result.crs else 'none (drawing frame only)'}",
@@ -209,7 +209,7 @@ def scan_section(s: "ScanResult", result: "RunResult") -> list[str]:
     if reasons:
         out.append("  invalid points: " + ", ".join(f"{k} {v}" for k, v in sorted(reasons.items())))
     verdict = "passed" if s.fit_passed else "MISFIT ACCEPTED BY OVERRIDE"
-    out.append(f"  scanner -> drawing: {s.fit_summary}, tolerance {site.tolerance_m * 1000:g} mm, {verdict}")
+    out.append(f"  scanner -> drawing: {s.fit_summary}, tolerance {site.registration.tolerance_m * 1000:g} mm, {verdict}")
     out.append(f"    {fit_text(s, site.drawing_unit, result.unit_m)}")
     out += ["    " + line for line in s.fit.report(site.drawing_unit)]
     return out
@@ -217,9 +217,9 @@ def scan_section(s: "ScanResult", result: "RunResult") -> list[str]:
 
 def quantities_section(result: "RunResult") -> list[str]:
     site = result.site
-    out = ["", f"repair quantities by element, each defect once at the highest class it reaches (basis {site.basis}: "
-           f"{'the estimated defect outline' if site.basis == 'outline' else 'the lowest class contour'}; margin "
-           f"{site.margin_m:g} m, {site.footprint} footprints):"]
+    out = ["", f"repair quantities by element, each defect once at the highest class it reaches (basis {site.repair.basis}: "
+           f"{'the estimated defect outline' if site.repair.basis == 'outline' else 'the lowest class contour'}; margin "
+           f"{site.repair.margin_m:g} m, {site.repair.footprint} footprints):"]
     totals = element_rows(result)
     if not totals:
         return out + ["  no defect above the lowest class level"]
@@ -237,17 +237,17 @@ def quantities_section(result: "RunResult") -> list[str]:
                      ([str(r["element"]), str(r["class"]), str(r["n_defects"]), fmt(r["affected_area_m2"], ".4f", "m2"),
                        fmt(r["element_share_pct"], ".3f", "%"), fmt(r["footprint_area_m2"], ".4f", "m2"),
                        span(r["volume_low_m3"], r["volume_high_m3"], ".4f", "m3")] for r in assets))
-    cols = class_columns(site.classes)
+    cols = class_columns(site.zones.classes)
     out += ["", "defects (contour areas of every class beside the priced outline):"]
     out += table([("defect", 18, "<"), ("element", 12, "<"), ("class", 9, "<"), ("affected", 10, ">"),
-                  ("outline from", 12, "<"), *[(f"{c.name} contour", 15, ">") for c in site.classes],
+                  ("outline from", 12, "<"), *[(f"{c.name} contour", 15, ">") for c in site.zones.classes],
                   ("footprint L x W", 15, ">"), ("depth", 13, ">"), ("peak", 8, ">"), ("conf.", 5, ">")],
                  ([str(r["defect_id"]), str(r["element"]), str(r["class"]), fmt(r["affected_area_m2"], ".4f", "m2"),
                    str(r["outline_basis"] or "-"), *[fmt(r[c], ".4f", "m2") for c in cols],
                    dims(r["footprint_length_m"], r["footprint_width_m"]),
                    span(r["depth_low_m"], r["depth_high_m"], ".3f", "m"), fmt(r["peak_hz"], ".0f", "Hz"),
                    fmt(r["confidence"], ".2f")]
-                  for r in defect_rows(result.zones, site.classes, site.basis)))
+                  for r in defect_rows(result.zones, site.zones.classes, site.repair.basis)))
     out.append("  depths are order-of-magnitude estimates (thin plate between clamped and simply supported edges)")
     return out
 

@@ -28,8 +28,8 @@ from overlay.quantities import defect_rows, defects
 if TYPE_CHECKING:
     from ezdxf.document import Drawing
 
-    from overlay.io.site import DxfStyle
     from overlay.job import RunResult
+    from overlay.settings import DxfStyle
 
 SHEET_MM = {"A0": (1189.0, 841.0), "A1": (841.0, 594.0), "A2": (594.0, 420.0), "A3": (420.0, 297.0),
             "A4": (297.0, 210.0)}  # ISO 216, landscape
@@ -147,7 +147,7 @@ def _caution_lines(width_mm: float) -> int:
 
 def side_height(result: "RunResult", width_mm: float) -> float:
     """Paper height the legend (two columns) and the cautions need above the title block."""
-    legend = 5.0 + 4.0 * max(len(result.site.classes), 3)
+    legend = 5.0 + 4.0 * max(len(result.site.zones.classes), 3)
     return legend + GAP + 4.0 + LINE_MM * _caution_lines(width_mm)
 
 
@@ -266,7 +266,7 @@ class _Pen:
 def add_sheets(doc: "Drawing", result: "RunResult", plan: SheetPlan, layer: str, style: "DxfStyle",
                mark: tuple[str, str], move: Callable[[Any], Any]) -> list[str]:
     """The plan drawn into paper-space layouts; returns their names (main sheet first)."""
-    rows = defect_rows(result.zones, result.site.classes, result.site.basis)
+    rows = defect_rows(result.zones, result.site.zones.classes, result.site.repair.basis)
     names: list[str] = []
     n_extra = max((d.sheet for d in plan.details), default=1) - 1
     per_page = _schedule_rows(plan.schedule)
@@ -314,8 +314,8 @@ def _details_on(pen: _Pen, result: "RunResult", plan: SheetPlan, sheet_no: int, 
     gets a paper-space label of its own at 2.5 mm, placed clear of the others, of their leaders and of
     the target symbols (``symbol_mm`` half-size on paper at the overview scale) inside the view."""
     prefix = result.site.dxf.prefix
-    text_layers = [f"{prefix}-{c.name.upper()}-TEXT" for c in result.site.classes]
-    found = defects(result.zones, result.site.classes)
+    text_layers = [f"{prefix}-{c.name.upper()}-TEXT" for c in result.site.zones.classes]
+    found = defects(result.zones, result.site.zones.classes)
     for d in plan.details:
         if d.sheet != sheet_no:
             continue
@@ -414,7 +414,7 @@ def _side(pen: _Pen, result: "RunResult", plan: SheetPlan) -> None:
     top = r.y1 - LABEL_MM
     pen.text("Legend", r.x0, top, LABEL_MM)
     y = top - 5.0
-    for c in result.site.classes:
+    for c in result.site.zones.classes:
         pen.fill(Region(r.x0, y - 0.5, r.x0 + 6.0, y + 2.5), cls[c.name].aci, cls[c.name].rgb)
         pen.text(f"{c.name}: VER >= {c.threshold_db:g} dB", r.x0 + 8.0, y, NOTE_MM)
         y -= 4.0

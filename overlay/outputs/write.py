@@ -29,8 +29,8 @@ from overlay.outputs.staging import Staged
 if TYPE_CHECKING:
     from overlay.assets.merge import MergeSummary
     from overlay.exporters import Exporter
-    from overlay.io.site import Site
     from overlay.job import RunResult
+    from overlay.settings import Site
 
 
 def check_targets(paths: Sequence[Path], *, overwrite: bool) -> None:
@@ -133,8 +133,8 @@ def _picture_tasks(result: "RunResult", dxf_path: Path | None) -> list[tuple[str
         if s.reference is not None and s.reference.level_db is not None:
             tasks.append((f"field-{s.scan_id}", "field", s.scan_id))
     tasks += [(f"defect-{file_stem(d.defect_id)}", "defect", d.defect_id)
-              for d in defects(result.zones, result.site.classes)]
-    if result.site.calibration is not None:
+              for d in defects(result.zones, result.site.zones.classes)]
+    if result.site.zones.calibration is not None:
         tasks.append(("calibration-roc", "roc", ""))
     return tasks + ([("dxf-preview", "dxf", "")] if dxf_path is not None else [])
 
@@ -177,7 +177,7 @@ def _draw(task: tuple[str, str, str]) -> bytes:
         return pictures.scan_thumbnail(result, scan) if compact else pictures.scan_preview(result, scan)
     if kind == "defect":
         if "defects" not in _SHARED:
-            _SHARED["defects"] = {d.defect_id: d for d in defects(result.zones, result.site.classes)}
+            _SHARED["defects"] = {d.defect_id: d for d in defects(result.zones, result.site.zones.classes)}
         d = _SHARED["defects"][key]
         return pictures.defect_spectrum(result, d) if compact else pictures.defect_sheet(result, d)
     if kind == "roc":
@@ -260,17 +260,17 @@ def write_outputs(result: "RunResult", out_dir: Path, *, overwrite: bool = False
     never.  ``jobs``: processes for the pictures; ``progress`` is called once per picture drawn."""
     from overlay.assets.merge import prepare_merge
 
-    exporters = select_exporters(result.site.formats, result.site.path)
-    paths = output_paths(out_dir, result.site.basename, exporters, result.site.formats)
-    folder = out_dir / f"{result.site.basename}-pictures"
+    exporters = select_exporters(result.site.outputs.formats, result.site.path)
+    paths = output_paths(out_dir, result.site.outputs.basename, exporters, result.site.outputs.formats)
+    folder = out_dir / f"{result.site.outputs.basename}-pictures"
     pics: dict[str, Path] = {}
     pages: dict[str, Path] = {}
     if pictures:
         pics = {n: folder / f"{n}.png" for n in picture_names(result, "dxf" in exporters)}
         if report_is_folder(result):
-            pages = {n: out_dir / f"{result.site.basename}-report" / n for n in report_page_names(result)}
+            pages = {n: out_dir / f"{result.site.outputs.basename}-report" / n for n in report_page_names(result)}
         else:
-            paths["html"] = out_dir / f"{result.site.basename}-report.html"
+            paths["html"] = out_dir / f"{result.site.outputs.basename}-report.html"
     browser = find_pdf_printer() if (pdf or (pdf is None and not pages)) and pictures else None
     if pdf and browser is None:
         raise UsageError("printing the report to PDF needs a headless Chromium (Debian package chromium); the HTML "
@@ -279,7 +279,7 @@ def write_outputs(result: "RunResult", out_dir: Path, *, overwrite: bool = False
         if pages:
             pages.update({n[:-5] + ".pdf": p.with_suffix(".pdf") for n, p in list(pages.items())})
         else:
-            paths["pdf"] = out_dir / f"{result.site.basename}-report.pdf"
+            paths["pdf"] = out_dir / f"{result.site.outputs.basename}-report.pdf"
     finals = list(paths.values()) + list(pics.values()) + list(pages.values())
     check_targets(finals, overwrite=overwrite)
     check_not_inputs(finals + ([folder] if pictures else []) + ([next(iter(pages.values())).parent] if pages else []),

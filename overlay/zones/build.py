@@ -30,7 +30,7 @@ from overlay.zones.zone import (
 
 if TYPE_CHECKING:
     from overlay.io.bundle import Scan
-    from overlay.io.site import Site
+    from overlay.settings import Site
 
 SIMPLIFY = 0.05  # contours are simplified within this fraction of the grid spacing
 PsdSource = Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]]
@@ -47,9 +47,9 @@ def build_zones(scan_id: str, element: str, surveyed: str, site: "Site", grid: G
     zones: list[Zone] = []
     find_parent = parent_finder([])
     lower = None
-    for ci, zc in enumerate(site.classes):
+    for ci, zc in enumerate(site.zones.classes):
         contours = class_contours(grid, values, zc.threshold_db, scan_area, to_drawing, spacing_d, lower,
-                                  site.min_area_m2 / (u * u))
+                                  site.zones.min_area_m2 / (u * u))
         built = []
         for k, contour in enumerate(contours, start=1):
             zone = build_zone(f"{scan_id}.{zc.name}.{k:02d}", scan_id, element, zc.name, zc.threshold_db,
@@ -185,8 +185,8 @@ def attach_repair(zone: Zone, parent: Zone | None, site: "Site", extent: Polygon
         zone.outline_misfit = parent.outline_misfit
         zone.conf_outline = parent.conf_outline
     zone.confidence = round(zone.confidence * zone.conf_outline, 4)
-    basis = zone.defect if site.basis == "outline" else zone.contour
-    rect, length, width = repair_footprint(basis, site.margin_m / u, site.footprint)
+    basis = zone.defect if site.repair.basis == "outline" else zone.contour
+    rect, length, width = repair_footprint(basis, site.repair.margin_m / u, site.repair.footprint)
     zone.footprint = rect
     zone.footprint_area_m2 = rect.area * u * u
     zone.footprint_length_m, zone.footprint_width_m = length * u, width * u

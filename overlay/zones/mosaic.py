@@ -26,7 +26,7 @@ import shapely
 from overlay.zones.zone import Zone, order_key, parent_finder, repair_footprint
 
 if TYPE_CHECKING:
-    from overlay.io.site import Site
+    from overlay.settings import Site
 
 
 def _groups(zones: list[Zone]) -> list[list[Zone]]:
@@ -94,8 +94,8 @@ def _unite(parts: list[Zone], site: "Site", unit_m: float) -> Zone:
     z.outline_area_m2 = defect.area * u2
     z.depth_low_m = min(p.depth_low_m for p in parts)
     z.depth_high_m = max(p.depth_high_m for p in parts)
-    basis = defect if site.basis == "outline" else contour
-    rect, length, width = repair_footprint(basis, site.margin_m / unit_m, site.footprint)
+    basis = defect if site.repair.basis == "outline" else contour
+    rect, length, width = repair_footprint(basis, site.repair.margin_m / unit_m, site.repair.footprint)
     z.footprint, z.footprint_area_m2 = rect, rect.area * u2
     z.footprint_length_m, z.footprint_width_m = length * unit_m, width * unit_m
     z.volume_low_m3 = z.footprint_area_m2 * z.depth_low_m
@@ -108,7 +108,7 @@ def mosaic_zones(zones: list[Zone], site: "Site", unit_m: float) -> list[Zone]:
     """Unite overlapping zones of each class across scans; nested classes keep their lowest-class defect."""
     out: list[Zone] = []
     find = parent_finder([])
-    for k, zc in enumerate(site.classes):
+    for k, zc in enumerate(site.zones.classes):
         mine = [z for z in zones if z.class_name == zc.name]
         united = sorted((_unite(g, site, unit_m) for g in _groups(mine)) if mine else [],
                         key=lambda z: (z.scan_id, order_key(z.contour)))
@@ -120,7 +120,7 @@ def mosaic_zones(zones: list[Zone], site: "Site", unit_m: float) -> list[Zone]:
                 if parent is not None:
                     z.defect_id, z.defect, z.outline_area_m2 = parent.defect_id, parent.defect, parent.outline_area_m2
                     z.depth_low_m, z.depth_high_m = parent.depth_low_m, parent.depth_high_m
-                if parent is not None and site.basis == "outline":
+                if parent is not None and site.repair.basis == "outline":
                     z.footprint, z.footprint_area_m2 = parent.footprint, parent.footprint_area_m2
                     z.footprint_length_m, z.footprint_width_m = parent.footprint_length_m, parent.footprint_width_m
                     z.volume_low_m3, z.volume_high_m3 = parent.volume_low_m3, parent.volume_high_m3
