@@ -198,3 +198,16 @@ def test_clean_bundle_gives_no_warning(bundle: Path) -> None:
     with warnings.catch_warnings():
         warnings.simplefilter("error")
         read_bundle(bundle)
+
+
+def test_a_target_beyond_the_documented_range_is_refused(bundle: Path) -> None:
+    # the points' range (|x|, |y| ≤ 1e6 m, docs/scan-bundle.md) holds for the targets too: a target at 1e308
+    # reached the fit as inf before
+    import re
+
+    text = (bundle / "scan.toml").read_text()
+    text = re.sub(r"scanner = \[[^\]]*\]", "scanner = [1e308, 0.0]", text, count=1)
+    (bundle / "scan.toml").write_text(text)
+    with pytest.raises(BundleError, match=r"targets\[0\]\.scanner: coordinate beyond 1e\+06") as info:
+        read_bundle(bundle)
+    assert info.value.exit_code == 3

@@ -7,11 +7,8 @@ Velocity records and spectra are memory-mapped, never loaded whole.
 
 from __future__ import annotations
 
-import csv
 import datetime as dt
-import difflib
 import re
-import stat
 import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -19,18 +16,14 @@ from pathlib import Path
 import numpy as np
 
 from overlay.errors import BundleError, BundleWarning
+from overlay.io.points import MAX_ANGLE_DEG, MAX_SURFACE_M, read_points, regular_file
 from overlay.io.tomlio import Fields, load_toml
 from overlay.units import LENGTH_TO_M, VELOCITY_TO_MPS
 
 FORMAT = "scan-bundle/1"
 SCAN_ID = re.compile(r"^[A-Za-z0-9._-]+$")
-KNOWN_COLUMNS = {"id", "row", "col", "x", "y", "ax", "ay", "valid", "signal_level", "ver_db", "peak_hz"}
-MAX_POINTS_BYTES = 256 << 20  # points.csv of 256 MiB holds ~4 million points; anything larger is not one scan
 MAX_SAMPLES = 1 << 24  # samples per record (5.5 minutes at 51.2 kHz)
 MAX_SHOTS = 1024
-MAX_SURFACE_M = 1.0e6  # |x|, |y| of surface coordinates and targets, metres
-MAX_ANGLE_DEG = 89.0  # |ax|, |ay| of mirror angles: a beam at 90 degrees never meets the surface
-CELLS_PER_POINT = 64  # row/col may span at most this many grid cells per point (else it is not a grid)
 SURVEYED_YEARS = (1950, 2200)
 
 
@@ -112,47 +105,13 @@ def read_bundle(folder: str | Path) -> Scan:
         raise BundleError("scan bundle folder not found", source=folder)
     manifest_path = folder / "scan.toml"
     doc = Fields(load_toml(manifest_path, BundleError), "", manifest_path, BundleError)
-
     fmt = doc.string("format", required=True)
     if fmt != FORMAT:
         raise doc.fail("format", f"unsupported format {fmt!r}; this reader knows {FORMAT!r}")
-
-    scan_t = doc.table_of("scan")
-    if scan_t is None:
-        raise doc.fail("scan", "table is required")
-    scan_id = scan_t.string("id", required=True)
-    assert scan_id is not None
-    if not SCAN_ID.match(scan_id):
-        raise scan_t.fail("id", f"must match [A-Za-z0-9._-]+, got {scan_id!r}")
-    element = scan_t.string("element")
-    surveyed = _surveyed(scan_t)
-    note = scan_t.string("note", "") or ""
-
-    coords = doc.table_of("coordinates")
-    if coords is None:
-        raise doc.fail("coordinates", "table is required")
-    kind = coords.choice("kind", ("surface", "angles"))
-    unit_scale = 1.0
-    if kind == "surface":
-        unit_scale = LENGTH_TO_M[coords.choice("unit", tuple(LENGTH_TO_M), default="m")]
-    elif coords.has("unit"):
-        raise coords.fail("unit", 'applies to kind "surface" only; angles are always degrees')
-
+    scan_id, element, surveyed, note = _scan_table(doc)
+    kind, unit_scale = _coordinates_table(doc)
     points_path = folder / "points.csv"
-    table = _read_points(points_path, kind, unit_scale)
-    n = len(table["id"])
-
-    records_path, spectra_path, freqs_path = (folder / f for f in ("records.npy", "spectra.npy", "frequencies.npy"))
-    has_ver = "ver_db" in table
-    present = [p.name for p in (records_path, spectra_path) if p.exists()] + (["ver_db column"] if has_ver else [])
-    if len(present) == 0:
-        raise BundleError(
-            "no payload: give records.npy, spectra.npy with frequencies.npy, or a ver_db column in points.csv",
-            source=folder,
-        )
-    if len(present) > 1:
-        raise BundleError(f"more than one payload ({', '.join(present)}); keep exactly one", source=folder)
-
+    table = read_points(points_path, kind, unit_scale)
     scan = Scan(
         path=folder,
         scan_id=scan_id,
@@ -160,7 +119,7 @@ def read_bundle(folder: str | Path) -> Scan:
         point_ids=table["id"],
         xy=table["xy"] * unit_scale,
         valid=table["valid"],
-        payload="records" if records_path.exists() else "spectra" if spectra_path.exists() else "ver",
+        payload=_payload_kind(folder, table),
         unit_scale=unit_scale,
         element=element,
         surveyed=surveyed,
@@ -171,49 +130,99 @@ def read_bundle(folder: str | Path) -> Scan:
         ver_db=table.get("ver_db"),
         peak_hz=table.get("peak_hz"),
     )
-    if "peak_hz" in table and not has_ver:
+    if "peak_hz" in table and "ver_db" not in table:
         raise BundleError("column peak_hz goes with ver_db; ver_db is missing", source=points_path, field="peak_hz")
+    _read_payload(scan, doc, folder)
+    scan.geometry = _geometry(doc)
+    scan.band_hz = _band(doc, scan)
+    scan.targets = _targets(doc, kind, unit_scale)
+    doc.seen.update({"geometry", "targets", "band"})
+    doc.reject_unknown()
+    return scan
 
+
+def _scan_table(doc: Fields) -> tuple[str, str | None, dt.datetime | None, str]:
+    """[scan]: id, element, surveyed, note."""
+    scan_t = doc.table_of("scan")
+    if scan_t is None:
+        raise doc.fail("scan", "table is required")
+    scan_id = scan_t.string("id", required=True)
+    assert scan_id is not None
+    if not SCAN_ID.match(scan_id):
+        raise scan_t.fail("id", f"must match [A-Za-z0-9._-]+, got {scan_id!r}")
+    out = (scan_id, scan_t.string("element"), _surveyed(scan_t), scan_t.string("note", "") or "")
+    scan_t.reject_unknown()
+    return out
+
+
+def _coordinates_table(doc: Fields) -> tuple[str, float]:
+    """[coordinates]: the kind, and metres per file unit (1 for angles, always degrees)."""
+    coords = doc.table_of("coordinates")
+    if coords is None:
+        raise doc.fail("coordinates", "table is required")
+    kind = coords.choice("kind", ("surface", "angles"))
+    unit_scale = 1.0
+    if kind == "surface":
+        unit_scale = LENGTH_TO_M[coords.choice("unit", tuple(LENGTH_TO_M), default="m")]
+    elif coords.has("unit"):
+        raise coords.fail("unit", 'applies to kind "surface" only; angles are always degrees')
+    coords.reject_unknown()
+    return kind, unit_scale
+
+
+def _payload_kind(folder: Path, table: dict[str, np.ndarray]) -> str:
+    """Exactly one payload: velocity records, spectra, or VER values in points.csv."""
+    present = [f for f in ("records.npy", "spectra.npy") if (folder / f).exists()]
+    present += ["ver_db column"] if "ver_db" in table else []
+    if len(present) == 0:
+        raise BundleError(
+            "no payload: give records.npy, spectra.npy with frequencies.npy, or a ver_db column in points.csv",
+            source=folder,
+        )
+    if len(present) > 1:
+        raise BundleError(f"more than one payload ({', '.join(present)}); keep exactly one", source=folder)
+    return {"records.npy": "records", "spectra.npy": "spectra"}.get(present[0], "ver")
+
+
+def _read_payload(scan: Scan, doc: Fields, folder: Path) -> None:
     if scan.payload == "records":
-        _read_records(scan, doc, records_path, n)
+        _read_records(scan, doc, folder / "records.npy", scan.n_points)
     elif doc.has("records"):
         raise doc.fail("records", "table given but records.npy is missing")
     if scan.payload == "spectra":
-        _read_spectra(scan, doc, spectra_path, freqs_path, n)
+        _read_spectra(scan, doc, folder / "spectra.npy", folder / "frequencies.npy", scan.n_points)
     elif doc.has("spectra"):
         raise doc.fail("spectra", "table given but spectra.npy is missing")
     if scan.payload == "ver":
+        assert scan.ver_db is not None
         finite = np.isfinite(scan.ver_db)
         if (~finite & scan.valid).any():
             bad = scan.point_ids[~finite & scan.valid]
             warnings.warn(
-                f"{points_path}: ver_db: {len(bad)} point(s) without a finite value marked invalid ({_few(bad)})",
+                f"{folder / 'points.csv'}: ver_db: {len(bad)} point(s) without a finite value marked invalid "
+                f"({_few(bad)})",
                 BundleWarning,
-                stacklevel=2,
+                stacklevel=3,
             )
         scan.valid = scan.valid & finite
 
-    scan.geometry = _geometry(doc)
-    band = doc.table_of("band")
-    if band is not None:
-        scan.band_hz = band.pair("hz", required=True)
-        lo, hi = scan.band_hz
-        if not 0 <= lo < hi:
-            raise band.fail("hz", f"must be [low, high] with 0 <= low < high, got [{lo:g}, {hi:g}]")
-        if scan.sample_rate_hz is not None and hi > scan.sample_rate_hz / 2:
-            raise band.fail("hz", f"upper edge {hi:g} Hz is above the Nyquist frequency {scan.sample_rate_hz / 2:g} Hz")
-        if scan.frequencies is not None and (hi < scan.frequencies[0] or lo > scan.frequencies[-1]):
-            raise band.fail("hz", "lies outside frequencies.npy")
-        band.reject_unknown()
-    elif scan.payload != "ver":
-        raise doc.fail("band", "table with hz = [low, high] is required unless ver_db is given")
 
-    scan.targets = _targets(doc, kind, unit_scale)
-    for t in (scan_t, coords):
-        t.reject_unknown()
-    doc.seen.update({"geometry", "targets", "band"})
-    doc.reject_unknown()
-    return scan
+def _band(doc: Fields, scan: Scan) -> tuple[float, float] | None:
+    """[band] hz: within Nyquist and the spectra's frequencies; required unless VER is given."""
+    band = doc.table_of("band")
+    if band is None:
+        if scan.payload != "ver":
+            raise doc.fail("band", "table with hz = [low, high] is required unless ver_db is given")
+        return None
+    lo, hi = band.pair("hz", required=True) or (0.0, 0.0)
+    if not 0 <= lo < hi:
+        raise band.fail("hz", f"must be [low, high] with 0 <= low < high, got [{lo:g}, {hi:g}]")
+    if scan.sample_rate_hz is not None and hi > scan.sample_rate_hz / 2:
+        raise band.fail("hz", f"upper edge {hi:g} Hz is above the Nyquist frequency {scan.sample_rate_hz / 2:g} Hz")
+    if scan.frequencies is not None and (hi < scan.frequencies[0] or lo > scan.frequencies[-1]):
+        raise band.fail("hz", "lies outside frequencies.npy")
+    band.reject_unknown()
+    return lo, hi
 
 
 def target_names(folder: Path) -> set[str]:
@@ -240,144 +249,9 @@ def _surveyed(scan_t: Fields) -> dt.datetime | None:
     raise scan_t.fail("surveyed", f"must be a TOML date or datetime, got {value!r}")
 
 
-def _read_points(path: Path, kind: str, unit_scale: float) -> dict[str, np.ndarray]:
-    _regular_file(path, MAX_POINTS_BYTES)
-    try:
-        text = path.read_text(encoding="utf-8-sig")
-    except UnicodeDecodeError as exc:
-        raise BundleError("not UTF-8 text", source=path) from exc
-    reader = csv.reader(text.splitlines())
-    try:
-        rows = list(reader)
-    except csv.Error as exc:
-        raise BundleError(f"not readable as CSV ({exc}; a stray quote?)", source=path,
-                          field=f"line {reader.line_num}") from exc
-    if not rows:
-        raise BundleError("empty file; a header row is required", source=path)
-    header = [h.strip() for h in rows[0]]
-    if len(set(header)) != len(header):
-        dup = sorted({h for h in header if header.count(h) > 1})
-        raise BundleError(f"duplicate column(s) {', '.join(dup)}", source=path, field="line 1")
-    xcol, ycol = ("x", "y") if kind == "surface" else ("ax", "ay")
-    for need in ("id", xcol, ycol):
-        if need not in header:
-            raise BundleError(f"required column {need!r} missing (coordinates kind {kind!r})", source=path, field="line 1")
-    if ("row" in header) != ("col" in header):
-        raise BundleError("columns row and col go together; one is missing", source=path, field="line 1")
-    other = ("ax", "ay") if kind == "surface" else ("x", "y")
-    unknown = [h for h in header if h not in KNOWN_COLUMNS or h in other]
-    if unknown:
-        h = unknown[0]
-        if h in other:
-            why = f"belongs to coordinates kind {'angles' if kind == 'surface' else 'surface'}, this scan is {kind!r}"
-        else:
-            near = difflib.get_close_matches(h, sorted(KNOWN_COLUMNS - set(other)), n=1, cutoff=0.6)
-            why = f"unknown column{f'; did you mean {near[0]!r}?' if near else ''} (known: {', '.join(sorted(KNOWN_COLUMNS - set(other)))})"
-        raise BundleError(why, source=path, field=f"line 1, column {h}")
-    linenos = [i for i, r in enumerate(rows[1:], start=2) if any(c.strip() for c in r)]
-    body = [rows[i - 1] for i in linenos]
-    if not body:
-        raise BundleError("no point rows after the header", source=path)
-    for ln, r in zip(linenos, body):
-        if len(r) != len(header):
-            raise BundleError(f"has {len(r)} fields, header has {len(header)}", source=path, field=f"line {ln}")
-    cols = {h: [c.strip() for c in column] for h, column in zip(header, zip(*body))}
-
-    ids = np.array(cols["id"], dtype=object)
-    seen: dict[str, int] = {}
-    for pid, ln in zip(ids, linenos):
-        if not pid:
-            raise BundleError("empty point id", source=path, field=f"line {ln}, column id")
-        if pid in seen:
-            raise BundleError(f"duplicate point id {pid!r} (first on line {seen[pid]})", source=path, field=f"line {ln}, column id")
-        seen[pid] = ln
-
-    def numbers(name: str, *, integer: bool = False, allow_empty: bool = False) -> np.ndarray:
-        """A column as numbers, parsed at once; where that fails, the first bad line is found and named."""
-        text = [("nan" if c == "" else c) for c in cols[name]] if allow_empty else cols[name]
-        try:
-            out = np.array(text, dtype=np.float64)
-        except ValueError:
-            values = []
-            for c, ln in zip(text, linenos):
-                try:
-                    values.append(float(c))
-                except ValueError:
-                    raise BundleError(f"not a number: {c!r}", source=path, field=f"line {ln}, column {name}") from None
-            out = np.array(values, dtype=np.float64)
-        if integer:
-            bad = ~np.isfinite(out) | (out != np.trunc(out))
-            if bad.any():
-                k = int(np.argmax(bad))
-                raise BundleError(f"not an integer: {cols[name][k]!r}", source=path,
-                                  field=f"line {linenos[k]}, column {name}")
-        return out
-
-    table: dict[str, np.ndarray] = {"id": ids}
-    xy = np.column_stack([numbers(xcol), numbers(ycol)])
-    bad = ~np.isfinite(xy).all(axis=1)
-    if bad.any():
-        ln = linenos[int(np.argmax(bad))]
-        raise BundleError("coordinates must be finite", source=path, field=f"line {ln}, columns {xcol}/{ycol}")
-    limit, what = (MAX_ANGLE_DEG, "degrees") if kind == "angles" else (MAX_SURFACE_M / unit_scale, "coordinate units")
-    far = (np.abs(xy) > limit).any(axis=1)
-    if far.any():
-        ln = linenos[int(np.argmax(far))]
-        raise BundleError(f"coordinate beyond {limit:g} {what} (documented range)", source=path,
-                          field=f"line {ln}, columns {xcol}/{ycol}")
-    table["xy"] = xy
-    if "row" in header:
-        row, col = numbers("row", integer=True).astype(np.int64), numbers("col", integer=True).astype(np.int64)
-        if (row < 0).any() or (col < 0).any():
-            ln = linenos[int(np.argmax((row < 0) | (col < 0)))]
-            raise BundleError("grid indices must be >= 0", source=path, field=f"line {ln}, columns row/col")
-        cells = (int(row.max() - row.min()) + 1) * (int(col.max() - col.min()) + 1)
-        if cells > CELLS_PER_POINT * len(ids) + 4096:
-            ln = linenos[int(np.argmax(np.maximum(row - row.min(), col - col.min())))]
-            raise BundleError(f"row/col span {cells} grid cells for {len(ids)} points (at most {CELLS_PER_POINT} "
-                              "per point); the indices are not a grid", source=path, field=f"line {ln}, columns row/col")
-        key = row * (col.max() + 1) + col
-        uniq, first = np.unique(key, return_index=True)
-        if len(uniq) != len(key):
-            dup = np.setdiff1d(np.arange(len(key)), first)[0]
-            raise BundleError(
-                f"grid cell ({row[dup]}, {col[dup]}) used twice", source=path, field=f"line {linenos[dup]}, columns row/col"
-            )
-        table["row"], table["col"] = row, col
-    valid = np.ones(len(ids), dtype=bool)
-    if "valid" in header:
-        for k, (s, ln) in enumerate(zip(cols["valid"], linenos)):
-            if s not in ("0", "1", ""):
-                raise BundleError(f"must be 1 or 0, got {s!r}", source=path, field=f"line {ln}, column valid")
-            valid[k] = s != "0"
-    table["valid"] = valid
-    if "signal_level" in header:
-        level = numbers("signal_level", allow_empty=True)
-        out = np.isfinite(level) & ((level < 0) | (level > 1))
-        if out.any():
-            ln = linenos[int(np.argmax(out))]
-            raise BundleError("must lie in 0..1", source=path, field=f"line {ln}, column signal_level")
-        table["signal_level"] = level
-    for name in ("ver_db", "peak_hz"):
-        if name in header:
-            table[name] = numbers(name, allow_empty=True)
-    return table
-
-
-def _regular_file(path: Path, max_bytes: int | None = None) -> None:
-    """A regular file (not a FIFO or a device, which would block or never end), within its size limit."""
-    if not path.exists():
-        raise BundleError("file not found", source=path)
-    st = path.stat()
-    if not stat.S_ISREG(st.st_mode):
-        raise BundleError("not a regular file (a pipe or device cannot be read as scan data)", source=path)
-    if max_bytes is not None and st.st_size > max_bytes:
-        raise BundleError(f"is {st.st_size} bytes, more than the {max_bytes} bytes documented as the limit", source=path)
-
-
 def _load_npy(path: Path) -> np.ndarray:
     """The array memory-mapped, after checking that the file is exactly as long as its header says."""
-    _regular_file(path)
+    regular_file(path)
     try:
         arr = np.load(path, mmap_mode="r", allow_pickle=False)
     except Exception as exc:  # numpy raises ValueError / OSError / EOFError for bad (or truncated) files
@@ -473,6 +347,9 @@ def _targets(doc: Fields, kind: str, unit_scale: float) -> list[Target]:
         names.add(name)
         scanner = t.pair("scanner", required=True)
         assert scanner is not None
+        limit, what = (MAX_ANGLE_DEG, "degrees") if kind == "angles" else (MAX_SURFACE_M / unit_scale, "coordinate units")
+        if not max(abs(scanner[0]), abs(scanner[1])) <= limit:
+            raise t.fail("scanner", f"coordinate beyond {limit:g} {what} (documented range)")
         if kind == "surface":
             scanner = (scanner[0] * unit_scale, scanner[1] * unit_scale)
         out.append(Target(name=name, scanner=scanner, drawing=t.pair("drawing")))
