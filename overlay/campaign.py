@@ -256,29 +256,12 @@ def run_campaign(
 
         check_register(site.elements)  # an unreachable register is found before the scans, not after
     out = CampaignResult(None)
-    results: dict[int, ScanResult] = {}
     caught: list[Seen] = []
-    todo: list[int] = []
-    keys: dict[int, Path] = {}
     known = _load_index(cache_dir)
     if cache_dir is not None:
         remove_stale_parts(cache_dir, ".")
-    for k, entry in enumerate(site.scans):
-        if cache_dir is not None and entry.bundle.is_dir():
-            path = cache_dir / f"{bundle_digest(entry.bundle, known)}-{settings_digest(site, entry)}.npz"
-            keys[k] = path
-            if path.is_file():
-                try:
-                    results[k] = cache.load(path)
-                except cache.CacheEntryError as exc:
-                    warnings.warn(f"{path}: cache entry {exc}; computing the scan again", CacheWarning, stacklevel=2)
-                    path.unlink(missing_ok=True)
-                else:
-                    out.cached.append(results[k].scan_id)
-                    if on_done is not None:
-                        on_done(results[k].scan_id, "cached")
-                    continue
-        todo.append(k)
+    results, keys = _cached(site, cache_dir, known, out, on_done)
+    todo = [k for k in range(len(site.scans)) if k not in results]
     entries = [site.scans[k] for k in todo]
     if jobs < 1:
         raise UsageError(f"jobs (parallel processes) must be at least 1, got {jobs}")
@@ -295,11 +278,7 @@ def run_campaign(
         results[k] = result
         out.computed.append(result.scan_id)
         if k in keys:
-            try:
-                cache.save(result, keys[k])
-            except OSError as exc:  # a cache that cannot be written changes no number
-                warnings.warn(f"{keys[k].parent}: cannot write the cache ({exc.strerror or exc}); going on without",
-                              CacheWarning, stacklevel=2)
+            _store(result, keys[k])
         if on_done is not None:
             on_done(result.scan_id, "done")
     _save_index(cache_dir, known)
@@ -309,6 +288,40 @@ def run_campaign(
         out.result = finish_site(site, ordered, started, caught)
     out.seconds = time.perf_counter() - t0
     return out
+
+
+def _cached(site: Site, cache_dir: Path | None, known: dict[str, list], out: CampaignResult,
+            on_done: Callable[[str, str], None] | None) -> tuple[dict[int, ScanResult], dict[int, Path]]:
+    """The scans whose result is in the cache (by bundle and settings digest), and every scan's cache path."""
+    results: dict[int, ScanResult] = {}
+    keys: dict[int, Path] = {}
+    if cache_dir is None:
+        return results, keys
+    for k, entry in enumerate(site.scans):
+        if not entry.bundle.is_dir():
+            continue
+        path = cache_dir / f"{bundle_digest(entry.bundle, known)}-{settings_digest(site, entry)}.npz"
+        keys[k] = path
+        if not path.is_file():
+            continue
+        try:
+            results[k] = cache.load(path)
+        except cache.CacheEntryError as exc:
+            warnings.warn(f"{path}: cache entry {exc}; computing the scan again", CacheWarning, stacklevel=3)
+            path.unlink(missing_ok=True)
+        else:
+            out.cached.append(results[k].scan_id)
+            if on_done is not None:
+                on_done(results[k].scan_id, "cached")
+    return results, keys
+
+
+def _store(result: ScanResult, path: Path) -> None:
+    try:
+        cache.save(result, path)
+    except OSError as exc:  # a cache that cannot be written changes no number
+        warnings.warn(f"{path.parent}: cannot write the cache ({exc.strerror or exc}); going on without",
+                      CacheWarning, stacklevel=3)
 
 
 def summary(c: CampaignResult) -> str:

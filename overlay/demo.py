@@ -21,6 +21,7 @@ from __future__ import annotations
 import json
 import math
 import shutil
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -59,7 +60,6 @@ def generate(dest: Path, scenario_dir: Path | None = None) -> Path:
     acq = sc["acquisition"]
     con = sc["concrete"]
     modulus = aci318_modulus_pa(con["fc_mpa"])
-    lam2 = clamped_lambda() ** 2
 
     fs, n = float(acq["sample_rate_hz"]), int(acq["n_samples"])
     c = speed_of_sound(acq["air_temperature_c"])
@@ -76,15 +76,7 @@ def generate(dest: Path, scenario_dir: Path | None = None) -> Path:
     sigma = math.sqrt(noise_var)
     e_noise = noise_var * 2 * (band[1] - band[0]) / fs
 
-    defects = []
-    for d in sc["defects"]:
-        a, b = d["semi_axes"]
-        radius = math.sqrt(a * b)
-        f0 = plate_frequency(radius, d["depth_m"], modulus, con["density"], con["poisson"], lam2)
-        w0 = 2 * math.pi * f0
-        gain = acq["participation"] * acq["healthy_impedance"] / (2 * con["damping"] * w0 * con["density"] * d["depth_m"])
-        response = _resonance(sweep, fs, f0, con["damping"], gain)
-        defects.append({**d, "radius_m": radius, "f0": f0, "gain": gain, "response": response})
+    defects = [_defect(d, sc, modulus, sweep, fs) for d in sc["defects"]]
 
     truth: dict[str, Any] = {
         "scenario": sc["structure"]["name"],
@@ -105,43 +97,67 @@ def generate(dest: Path, scenario_dir: Path | None = None) -> Path:
     write_asbuilt_dxf(dest / "as-built.dxf", sc["structure"])
     write_assets(dest / "assets.gpkg", sc["structure"])
     levels = [(c.name, c.threshold_db) for c in read_site(site_path).zones.classes]
+    seg_h = h0 * sweep[gate[0] : gate[1]]
     for d in defects:
         scan_id = next((s["id"] for s in truth["scans"] if d["id"] in s["defects"]), None)
-        seg_h = h0 * sweep[gate[0] : gate[1]]
-        seg_d = h0 * d["response"][gate[0] : gate[1]]
-        phis = np.linspace(0.0, 1.0, 401)
-        energies = np.array([_band_energy(seg_h + p * seg_d, fs, band) for p in phis]) + e_noise
-        ver_curve = 10 * np.log10(energies / (e_healthy + e_noise))
-        rho = np.linspace(0.0, 1.0, 2001)
-        shape = clamped_mode_shape(rho)
-        predicted = {}
-        for name, level in levels:
-            if ver_curve[-1] < level:
-                predicted[name] = 0.0
-                continue
-            phi_l = float(np.interp(level, ver_curve, phis)) if np.all(np.diff(ver_curve) > 0) else float(phis[np.argmax(ver_curve >= level)])
-            rho_l = float(np.interp(phi_l, shape[::-1], rho[::-1]))
-            predicted[name] = math.pi * d["semi_axes"][0] * d["semi_axes"][1] * rho_l**2
-        band_ok = 1.05 * band[0] <= d["f0"] <= 0.95 * band[1]
-        detectable = bool(band_ok and d["radius_m"] >= 2 * acq["spacing_m"] and ver_curve[-1] >= levels[0][1] + 3)
-        truth["defects"].append({
-            "id": d["id"],
-            "scan_id": scan_id,
-            "center": d["center"],
-            "semi_axes": d["semi_axes"],
-            "rotation_deg": d["rotation_deg"],
-            "depth_m": d["depth_m"],
-            "radius_m": d["radius_m"],
-            "area_m2": math.pi * d["semi_axes"][0] * d["semi_axes"][1],
-            "plate_frequency_hz": d["f0"],
-            "peak_ver_db": float(ver_curve[-1]),
-            "detectable": detectable,
-            "predicted_contour_area_m2": predicted,
-            "outline": ellipse(d["center"], d["semi_axes"], d["rotation_deg"]).tolist(),
-        })
+        ver_curve = _ver_curve(seg_h, h0 * d["response"][gate[0] : gate[1]], fs, band, e_healthy, e_noise)
+        truth["defects"].append(_defect_truth(d, scan_id, ver_curve, levels, band, acq["spacing_m"]))
     (dest / "truth.json").write_text(json.dumps(truth, indent=1))
     write_sounding(dest, sc, truth)
     return site_path
+
+
+def _defect(d: dict, sc: dict, modulus: float, sweep: np.ndarray, fs: float) -> dict[str, Any]:
+    """A scenario defect with its plate frequency (equivalent circle, clamped edge) and its response."""
+    acq, con = sc["acquisition"], sc["concrete"]
+    a, b = d["semi_axes"]
+    radius = math.sqrt(a * b)
+    f0 = plate_frequency(radius, d["depth_m"], modulus, con["density"], con["poisson"], clamped_lambda() ** 2)
+    w0 = 2 * math.pi * f0
+    gain = acq["participation"] * acq["healthy_impedance"] / (2 * con["damping"] * w0 * con["density"] * d["depth_m"])
+    response = _resonance(sweep, fs, f0, con["damping"], gain)
+    return {**d, "radius_m": radius, "f0": f0, "gain": gain, "response": response}
+
+
+def _ver_curve(seg_h: np.ndarray, seg_d: np.ndarray, fs: float, band: tuple, e_healthy: float,
+               e_noise: float) -> np.ndarray:
+    """VER in dB against the share 0..1 of the defect's full response (the mode shape's value), on 401 steps."""
+    phis = np.linspace(0.0, 1.0, 401)
+    energies = np.array([_band_energy(seg_h + p * seg_d, fs, band) for p in phis]) + e_noise
+    return 10 * np.log10(energies / (e_healthy + e_noise))
+
+
+def _defect_truth(d: dict, scan_id: str | None, ver_curve: np.ndarray, levels: list[tuple[str, float]],
+                  band: tuple, spacing_m: float) -> dict[str, Any]:
+    """What the truth file says of one defect, with the contour area each class level should give."""
+    phis = np.linspace(0.0, 1.0, len(ver_curve))
+    rho = np.linspace(0.0, 1.0, 2001)
+    shape = clamped_mode_shape(rho)
+    predicted = {}
+    for name, level in levels:
+        if ver_curve[-1] < level:
+            predicted[name] = 0.0
+            continue
+        phi_l = float(np.interp(level, ver_curve, phis)) if np.all(np.diff(ver_curve) > 0) else float(phis[np.argmax(ver_curve >= level)])
+        rho_l = float(np.interp(phi_l, shape[::-1], rho[::-1]))
+        predicted[name] = math.pi * d["semi_axes"][0] * d["semi_axes"][1] * rho_l**2
+    band_ok = 1.05 * band[0] <= d["f0"] <= 0.95 * band[1]
+    detectable = bool(band_ok and d["radius_m"] >= 2 * spacing_m and ver_curve[-1] >= levels[0][1] + 3)
+    return {
+        "id": d["id"],
+        "scan_id": scan_id,
+        "center": d["center"],
+        "semi_axes": d["semi_axes"],
+        "rotation_deg": d["rotation_deg"],
+        "depth_m": d["depth_m"],
+        "radius_m": d["radius_m"],
+        "area_m2": math.pi * d["semi_axes"][0] * d["semi_axes"][1],
+        "plate_frequency_hz": d["f0"],
+        "peak_ver_db": float(ver_curve[-1]),
+        "detectable": detectable,
+        "predicted_contour_area_m2": predicted,
+        "outline": ellipse(d["center"], d["semi_axes"], d["rotation_deg"]).tolist(),
+    }
 
 
 def write_sounding(dest: Path, sc: dict, truth: dict) -> None:
@@ -168,8 +184,29 @@ def write_sounding(dest: Path, sc: dict, truth: dict) -> None:
     def element_at(x: float, y: float) -> str:
         return next((aid for aid, poly in panels if poly.covers(shapely.Point(x, y))), "")
 
+    heard = _traced_hollows(truth["defects"], area_sounded, cfg, rng, element_at)
+    to_map = from_placement(tuple(st["origin"]), st["bearing_deg"], 1.0, "m")
+    rows = [{"element": e, "date": cfg["date"], "note": f"traced hollow ({did})"} for _, e, did in heard]
+    path = dest / "sounding.gpkg"
+    path.unlink(missing_ok=True)
+    gpd.GeoDataFrame(rows, geometry=[to_map.apply_geometry(g) for g, _, _ in heard], crs=st["crs"]).to_file(
+        path, layer="hollow_areas", driver="GPKG", VERSION="1.3")  # a version the GIS of long-term distributions read
+    hollow_heard = shapely.union_all([g for g, _, _ in heard]) if heard else Polygon()
+    lines = _verdict_points(sc, area_sounded, hollow_heard, cfg, rng, element_at)
+    with (dest / "sounding-points.csv").open("w", newline="") as fh:
+        w_ = csv_module.writer(fh)
+        w_.writerow(["x", "y", "verdict", "element", "date"])
+        w_.writerows(sorted(set(lines)))
+
+
+def _traced_hollows(defects: list[dict], area_sounded: Any, cfg: dict, rng: np.random.Generator,
+                    element_at: Callable[[float, float], str]) -> list[tuple[Any, str, str]]:
+    """(traced outline, element, defect id) of each hollow the hammer hears: grown by the margin, wobbling."""
+    import shapely
+    from shapely.geometry import Polygon
+
     heard = []
-    for d in truth["defects"]:
+    for d in defects:
         outline = Polygon(d["outline"])
         if not area_sounded.contains(outline.centroid):
             continue
@@ -185,13 +222,14 @@ def write_sounding(dest: Path, sc: dict, truth: dict) -> None:
             k = 1.0 + rng.uniform(-1, 1) * cfg["wobble_m"] / max(p.distance(c), 1e-9)
             ring.append((c.x + (p.x - c.x) * k, c.y + (p.y - c.y) * k))
         heard.append((Polygon(ring), element_at(c.x, c.y), d["id"]))
-    to_map = from_placement(tuple(st["origin"]), st["bearing_deg"], 1.0, "m")
-    rows = [{"element": e, "date": cfg["date"], "note": f"traced hollow ({did})"} for _, e, did in heard]
-    path = dest / "sounding.gpkg"
-    path.unlink(missing_ok=True)
-    gpd.GeoDataFrame(rows, geometry=[to_map.apply_geometry(g) for g, _, _ in heard], crs=st["crs"]).to_file(
-        path, layer="hollow_areas", driver="GPKG", VERSION="1.3")  # a version the GIS of long-term distributions read
-    hollow_heard = shapely.union_all([g for g, _, _ in heard]) if heard else Polygon()
+    return heard
+
+
+def _verdict_points(sc: dict, area_sounded: Any, hollow_heard: Any, cfg: dict, rng: np.random.Generator,
+                    element_at: Callable[[float, float], str]) -> list[tuple[float, float, str, str, str]]:
+    """A grid of hollow/sound verdicts over the sounded scans, ``flip_share`` of them wrong."""
+    import shapely
+
     step = cfg["point_spacing_m"]
     lines = []
     for scan in sc["scans"]:
@@ -208,10 +246,7 @@ def write_sounding(dest: Path, sc: dict, truth: dict) -> None:
                     hollow = not hollow
                 lines.append((round(float(x), 3), round(float(y), 3), "hollow" if hollow else "sound",
                               element_at(float(x), float(y)), cfg["date"]))
-    with (dest / "sounding-points.csv").open("w", newline="") as fh:
-        w_ = csv_module.writer(fh)
-        w_.writerow(["x", "y", "verdict", "element", "date"])
-        w_.writerows(sorted(set(lines)))
+    return lines
 
 
 def ellipse(center: list[float], semi_axes: list[float], rotation_deg: float, n: int = 96) -> np.ndarray:
@@ -328,13 +363,31 @@ def _write_scan(folder: Path, s: dict, sc: dict, defects: list[dict], t: np.ndar
     folder.mkdir(parents=True, exist_ok=True)
     kind = s.get("kind", "surface")
     lay = _angles_layout(s, acq) if kind == "angles" else _surface_layout(s, acq)
-    drawing = lay.drawing
-    n_pts = len(drawing)
+    inside = [d for d in defects if _covers(lay.drawing, d)]
+    rec, valid, level, n_drop = _records(lay, inside, acq, t, sweep, echo, h0, sigma, rng)
+    vscale = 1000.0 if s["velocity_unit"] == "mm/s" else 1.0
+    np.save(folder / "records.npy", (rec * vscale).astype(np.float32))
 
-    inside = [d for d in defects if _covers(drawing, d)]
+    uscale = 1000.0 if s.get("unit") == "mm" else 1.0
+    cx, cy = ("ax", "ay") if kind == "angles" else ("x", "y")
+    lines = [f"id,row,col,{cx},{cy},valid,signal_level"]
+    for i in range(len(lay.drawing)):
+        x, y = lay.scanner[i] * uscale
+        lines.append(f"P{lay.rows[i]:03d}-{lay.cols[i]:03d},{lay.rows[i]},{lay.cols[i]},{x:.5f},{y:.5f},{valid[i]},{level[i]:.3f}")
+    (folder / "points.csv").write_text("\n".join(lines) + "\n")
+    (folder / "scan.toml").write_text(_manifest(s, acq, kind) + "\n".join(_targets(lay, s, acq, kind, uscale, rng)))
+    return {"id": s["id"], "element": s["element"], "kind": kind, "defects": [d["id"] for d in inside],
+            "n_points": len(lay.drawing), "dropouts": int(n_drop), "nan_points": int(acq["nan_points"])}
+
+
+def _records(lay: _Layout, inside: list[dict], acq: dict, t: np.ndarray, sweep: np.ndarray, echo: np.ndarray, h0: float,
+             sigma: float, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray, np.ndarray, int]:
+    """Velocity records (m/s): the sweep, each defect's response weighted by its mode shape, seen along the
+    beam, a late echo, noise; dropouts (weak, marked invalid) and a few records damaged by NaN."""
+    n_pts = len(lay.drawing)
     coeffs = np.zeros((n_pts, len(inside)))
     for k, d in enumerate(inside):
-        coeffs[:, k] = clamped_mode_shape(_ell_radius(drawing, d))
+        coeffs[:, k] = clamped_mode_shape(_ell_radius(lay.drawing, d))
     waves = np.stack([d["response"] for d in inside]) if inside else np.zeros((0, len(t)))
     rec = h0 * (sweep[None, :] + coeffs @ waves)
     rec *= lay.cos_incidence[:, None]  # the beam sees the normal motion times cos θ
@@ -350,30 +403,28 @@ def _write_scan(folder: Path, s: dict, sc: dict, defects: list[dict], t: np.ndar
     healthy_idx = np.setdiff1d(np.arange(n_pts), drop)
     corrupt = rng.choice(healthy_idx, int(acq["nan_points"]), replace=False)
     rec[corrupt, len(t) // 3 : len(t) // 3 + 5] = np.nan
-    vscale = 1000.0 if s["velocity_unit"] == "mm/s" else 1.0
-    np.save(folder / "records.npy", (rec * vscale).astype(np.float32))
+    return rec, valid, level, n_drop
 
-    uscale = 1000.0 if s.get("unit") == "mm" else 1.0
-    cx, cy = ("ax", "ay") if kind == "angles" else ("x", "y")
-    lines = [f"id,row,col,{cx},{cy},valid,signal_level"]
-    for i in range(n_pts):
-        x, y = lay.scanner[i] * uscale
-        lines.append(f"P{lay.rows[i]:03d}-{lay.cols[i]:03d},{lay.rows[i]},{lay.cols[i]},{x:.5f},{y:.5f},{valid[i]},{level[i]:.3f}")
-    (folder / "points.csv").write_text("\n".join(lines) + "\n")
 
-    targets = []
+def _targets(lay: _Layout, s: dict, acq: dict, kind: str, uscale: float, rng: np.random.Generator) -> list[str]:
+    """[[targets]] entries: as the scanner saw them and as surveyed, each with its own measuring noise."""
+    out = []
     noise = acq["target_angle_noise_deg"] if kind == "angles" else acq["target_noise_m"]
     for k, (true_s, true_d) in enumerate(zip(lay.target_scanner, lay.target_drawing), start=1):
         seen = (true_s + rng.normal(0, noise, 2)) * uscale
         surveyed = true_d + rng.normal(0, acq["survey_noise_m"], 2)
         name = f"{s['id'].replace('-', '')}-T{k}"
-        targets.append(
+        out.append(
             f'[[targets]]\nname = "{name}"\nscanner = [{seen[0]:.5f}, {seen[1]:.5f}]\n'
             f"drawing = [{surveyed[0]:.4f}, {surveyed[1]:.4f}]\n"
         )
+    return out
+
+
+def _manifest(s: dict, acq: dict, kind: str) -> str:
     coords = 'kind = "angles"' if kind == "angles" else f'kind = "surface"\nunit = "{s["unit"]}"'
     head = s.get("standoff_m", acq["head_distance_m"])
-    manifest = f'''format = "scan-bundle/1"
+    return f'''format = "scan-bundle/1"
 
 [scan]
 id = "{s['id']}"
@@ -397,10 +448,7 @@ air_temperature_c = {acq['air_temperature_c']}
 [band]
 hz = [{acq['band_hz'][0]}, {acq['band_hz'][1]}]
 
-''' + "\n".join(targets)
-    (folder / "scan.toml").write_text(manifest)
-    return {"id": s["id"], "element": s["element"], "kind": kind, "defects": [d["id"] for d in inside],
-            "n_points": n_pts, "dropouts": int(n_drop), "nan_points": int(acq["nan_points"])}
+'''
 
 
 def _ell_radius(xy: np.ndarray, d: dict) -> np.ndarray:

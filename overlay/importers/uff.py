@@ -74,79 +74,14 @@ class UffImporter:
                             help="the nodes, in node-number order, fill a (curvilinear) grid row by row; checked")
 
     def read(self, paths: list[Path], options: dict[str, Any]) -> Imported:
-        import pyuff
-
-        sets: list[tuple[Path, int, dict]] = []
-        for p in paths:
-            if not p.is_file():
-                raise BundleError("file not found", source=p)
-            try:
-                data = pyuff.UFF(str(p)).read_sets()
-            except Exception as exc:  # pyuff raises plain exceptions for malformed files
-                raise BundleError(f"not a readable Universal File ({exc})", source=p) from exc
-            data = data if isinstance(data, list) else [data]
-            sets += [(p, k, d) for k, d in enumerate(data)]
+        sets = _datasets(paths)
         direction = int(options.get("direction", 3))
-        length = LENGTH_TO_M[options.get("length_unit", "m")]
-        nodes: dict[int, tuple[float, float]] = {}
-        for p, k, d in sets:
-            if d.get("type") in (15, 2411):
-                for n, x, y in zip(d["node_nums"], d["x"], d["y"]):
-                    n = int(n)
-                    if n in nodes:
-                        raise BundleError(f"node {n} defined twice", source=p, field=f"dataset {d['type']} (set {k})")
-                    nodes[n] = (float(x) * length, float(y) * length)
-        if not nodes:
-            raise BundleError("no node coordinates (datasets 15 or 2411)", source=paths[0])
-        funcs = [(p, k, d) for p, k, d in sets if d.get("type") == 58 and abs(int(d.get("rsp_dir", 0))) == direction]
-        if not funcs:
-            raise BundleError(f"no dataset 58 with response direction {direction}", source=paths[0])
-        kinds = {int(d["func_type"]) for _, _, d in funcs}
-        if not kinds <= {TIME, PSD} or len(kinds) != 1:
-            raise BundleError(f"function types {sorted(kinds)}: one kind is needed, {TIME} (time response) or "
-                              f"{PSD} (power spectral density)", source=funcs[0][0], field="dataset 58 R6 F1")
-        kind = kinds.pop()
-        labels = {_label(d) for _, _, d in funcs}
-        unit_opt = options.get("velocity_unit")
-        if len(labels) > 1:
-            raise BundleError(f"mixed ordinate units {sorted(labels)} among the function records", source=funcs[0][0],
-                              field="dataset 58 R9 F6")
-        label = labels.pop() if labels else ""
-        psd_unit = label.replace("^2/hz", "").replace("2/hz", "").replace("²/hz", "").strip("() ")
-        unit = unit_opt or (label if kind == TIME else psd_unit)
-        if unit not in VELOCITY_TO_MPS:
-            raise BundleError(f"ordinate unit {label!r} is not a velocity this importer knows (m/s, mm/s); "
-                              "give --velocity-unit", source=funcs[0][0], field="dataset 58 R9 F6")
-        scale = VELOCITY_TO_MPS[unit] if kind == TIME else VELOCITY_TO_MPS[unit] ** 2
-        spacing = {(int(d.get("abscissa_spacing", 1)), float(d["abscissa_min"]), float(d["abscissa_inc"]), len(d["data"]))
-                   for _, _, d in funcs}
-        if any(s[0] != 1 for s in spacing):
-            raise BundleError("uneven abscissa spacing; only evenly spaced function data can be imported",
-                              source=funcs[0][0], field="dataset 58 R7 F3")
-        if len(spacing) > 1:
-            raise BundleError(f"inconsistent abscissa among the function records: {sorted(spacing)[:3]}",
-                              source=funcs[0][0], field="dataset 58 R7 F4/F5")
-        _, x0, inc, m = spacing.pop()
+        nodes = _nodes(sets, LENGTH_TO_M[options.get("length_unit", "m")], paths[0])
+        funcs, kind = _functions(sets, direction, paths[0])
+        label, scale = _ordinate(funcs, kind, options.get("velocity_unit"))
+        x0, inc, m = _abscissa(funcs)
         ids = sorted(nodes)
-        pos = {n: i for i, n in enumerate(ids)}
-        values = np.zeros((len(ids), m), dtype=np.float64)
-        have = np.zeros(len(ids), dtype=bool)
-        dropped: list[str] = []
-        for p, k, d in funcs:
-            n = int(d["rsp_node"])
-            if n not in pos:
-                raise BundleError(f"response node {n} has no coordinates", source=p, field=f"dataset 58 (set {k}) R6 F6")
-            if have[pos[n]]:
-                raise BundleError(f"second record for node {n}, direction {direction}", source=p, field=f"dataset 58 (set {k})")
-            v = np.real(np.asarray(d["data"], dtype=np.complex128))
-            if not np.isfinite(v).all():
-                if not options.get("allow_partial"):
-                    raise BundleError(f"non-finite values in the record of node {n} (use --allow-partial to drop it)",
-                                      source=p, field=f"dataset 58 (set {k}) R12")
-                dropped.append(f"node {n}: non-finite values")
-                continue
-            values[pos[n]] = v * scale
-            have[pos[n]] = True
+        values, have, dropped = _values(funcs, ids, m, scale, direction, bool(options.get("allow_partial")))
         xy = np.array([nodes[n] for n in ids])
         shape = options.get("grid_shape")
         grid = declared_grid(xy, tuple(shape), paths[0]) if shape else grid_indices(xy)
@@ -170,7 +105,7 @@ class UffImporter:
             out.assumed.append("node coordinates in metres (--length-unit)")
         if not options.get("band_hz"):
             out.assumed.append("analysis band 400..8000 Hz (--band)")
-        if unit_opt is None and not label:
+        if options.get("velocity_unit") is None and not label:
             out.assumed.append("velocity unit m/s")
         if kind == TIME and not options.get("gate_s"):
             out.assumed.append(f"gate = the whole record, 0..{m * inc * 1e3:g} ms (--gate START END, seconds)")
@@ -178,3 +113,103 @@ class UffImporter:
         if missing:
             out.found.append(f"{missing} node(s) without function data: marked invalid")
         return out
+
+
+_Set = tuple[Path, int, dict]  # the file, the dataset's place in it, pyuff's dictionary
+
+
+def _datasets(paths: list[Path]) -> list[_Set]:
+    import pyuff
+
+    sets: list[_Set] = []
+    for p in paths:
+        if not p.is_file():
+            raise BundleError("file not found", source=p)
+        try:
+            data = pyuff.UFF(str(p)).read_sets()
+        except Exception as exc:  # pyuff raises plain exceptions for malformed files
+            raise BundleError(f"not a readable Universal File ({exc})", source=p) from exc
+        data = data if isinstance(data, list) else [data]
+        sets += [(p, k, d) for k, d in enumerate(data)]
+    return sets
+
+
+def _nodes(sets: list[_Set], length: float, first: Path) -> dict[int, tuple[float, float]]:
+    """Node number → (x, y) in metres, from datasets 15 and 2411; a node defined twice is refused."""
+    nodes: dict[int, tuple[float, float]] = {}
+    for p, k, d in sets:
+        if d.get("type") in (15, 2411):
+            for n, x, y in zip(d["node_nums"], d["x"], d["y"]):
+                n = int(n)
+                if n in nodes:
+                    raise BundleError(f"node {n} defined twice", source=p, field=f"dataset {d['type']} (set {k})")
+                nodes[n] = (float(x) * length, float(y) * length)
+    if not nodes:
+        raise BundleError("no node coordinates (datasets 15 or 2411)", source=first)
+    return nodes
+
+
+def _functions(sets: list[_Set], direction: int, first: Path) -> tuple[list[_Set], int]:
+    """The dataset-58 records in the response direction, and their one function type (time or PSD)."""
+    funcs = [(p, k, d) for p, k, d in sets if d.get("type") == 58 and abs(int(d.get("rsp_dir", 0))) == direction]
+    if not funcs:
+        raise BundleError(f"no dataset 58 with response direction {direction}", source=first)
+    kinds = {int(d["func_type"]) for _, _, d in funcs}
+    if not kinds <= {TIME, PSD} or len(kinds) != 1:
+        raise BundleError(f"function types {sorted(kinds)}: one kind is needed, {TIME} (time response) or "
+                          f"{PSD} (power spectral density)", source=funcs[0][0], field="dataset 58 R6 F1")
+    return funcs, kinds.pop()
+
+
+def _ordinate(funcs: list[_Set], kind: int, unit_opt: str | None) -> tuple[str, float]:
+    """The records' ordinate label and the factor to m/s (or (m/s)²/Hz); one unit for all records."""
+    labels = {_label(d) for _, _, d in funcs}
+    if len(labels) > 1:
+        raise BundleError(f"mixed ordinate units {sorted(labels)} among the function records", source=funcs[0][0],
+                          field="dataset 58 R9 F6")
+    label = labels.pop() if labels else ""
+    psd_unit = label.replace("^2/hz", "").replace("2/hz", "").replace("²/hz", "").strip("() ")
+    unit = unit_opt or (label if kind == TIME else psd_unit)
+    if unit not in VELOCITY_TO_MPS:
+        raise BundleError(f"ordinate unit {label!r} is not a velocity this importer knows (m/s, mm/s); "
+                          "give --velocity-unit", source=funcs[0][0], field="dataset 58 R9 F6")
+    return label, VELOCITY_TO_MPS[unit] if kind == TIME else VELOCITY_TO_MPS[unit] ** 2
+
+
+def _abscissa(funcs: list[_Set]) -> tuple[float, float, int]:
+    """Start, step and length shared by every record (evenly spaced only)."""
+    spacing = {(int(d.get("abscissa_spacing", 1)), float(d["abscissa_min"]), float(d["abscissa_inc"]), len(d["data"]))
+               for _, _, d in funcs}
+    if any(s[0] != 1 for s in spacing):
+        raise BundleError("uneven abscissa spacing; only evenly spaced function data can be imported",
+                          source=funcs[0][0], field="dataset 58 R7 F3")
+    if len(spacing) > 1:
+        raise BundleError(f"inconsistent abscissa among the function records: {sorted(spacing)[:3]}",
+                          source=funcs[0][0], field="dataset 58 R7 F4/F5")
+    _, x0, inc, m = spacing.pop()
+    return x0, inc, m
+
+
+def _values(funcs: list[_Set], ids: list[int], m: int, scale: float, direction: int,
+            allow_partial: bool) -> tuple[np.ndarray, np.ndarray, list[str]]:
+    """One row per node (zeros where none), which nodes have one, and what was dropped and why."""
+    pos = {n: i for i, n in enumerate(ids)}
+    values = np.zeros((len(ids), m), dtype=np.float64)
+    have = np.zeros(len(ids), dtype=bool)
+    dropped: list[str] = []
+    for p, k, d in funcs:
+        n = int(d["rsp_node"])
+        if n not in pos:
+            raise BundleError(f"response node {n} has no coordinates", source=p, field=f"dataset 58 (set {k}) R6 F6")
+        if have[pos[n]]:
+            raise BundleError(f"second record for node {n}, direction {direction}", source=p, field=f"dataset 58 (set {k})")
+        v = np.real(np.asarray(d["data"], dtype=np.complex128))
+        if not np.isfinite(v).all():
+            if not allow_partial:
+                raise BundleError(f"non-finite values in the record of node {n} (use --allow-partial to drop it)",
+                                  source=p, field=f"dataset 58 (set {k}) R12")
+            dropped.append(f"node {n}: non-finite values")
+            continue
+        values[pos[n]] = v * scale
+        have[pos[n]] = True
+    return values, have, dropped
