@@ -19,7 +19,7 @@ import numpy as np
 import pytest
 
 from overlay.cautions import CAUTIONS
-from overlay.outputs import pictures
+from overlay.outputs import pictures, plotting
 from overlay.outputs.write import write_outputs
 
 VOID = {"meta", "img", "br", "hr", "link", "input"}
@@ -86,13 +86,13 @@ def test_picture_ids_and_numbers_match_the_zone_table(written: dict, monkeypatch
     defects = {r["defect_id"]: r for r in rows if r["row_kind"] == "defect"}
     texts: dict[str, list[str]] = {}
     drawn: list[str] = []
-    real_png = pictures._png
+    real_png = plotting.png
 
     def capture(fig):  # the texts of the figure about to be rendered
         drawn.append("\n".join(t.get_text() for t in fig.findobj(matplotlib.text.Text)))
         return real_png(fig)
 
-    monkeypatch.setattr(pictures, "_png", capture)
+    monkeypatch.setattr(plotting, "png", capture)
     for name, kind, key in outputs._picture_tasks(written["result"], None):
         outputs._share(written["result"], None)
         outputs._SHARED["compact"] = compact
@@ -378,7 +378,7 @@ def test_grid_scans_are_drawn_as_images_placed_by_their_affine_lattice(demo: dic
 def test_campaign_pictures_are_compact_and_keyed(folder_report: dict) -> None:
     # a campaign's scan maps: the compact size, on one colour scale whose key each element page shows
     paths, result = folder_report["paths"], folder_report["result"]
-    w, h = (round(v * pictures.DPI) for v in pictures.THUMB_SIZE)
+    w, h = (round(v * plotting.DPI) for v in pictures.THUMB_SIZE)
     for s in result.scans:
         png = (paths["pictures"] / f"scan-{s.scan_id}.png").read_bytes()
         assert _size(png) == (w, h)

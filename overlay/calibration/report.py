@@ -135,7 +135,7 @@ def html_report(result: "RunResult", cal: Calibration, pictures: dict[str, bytes
 
 
 def pictures_of(result: "RunResult", cal: Calibration) -> dict[str, bytes]:
-    from overlay.outputs import pictures
+    from overlay.outputs import site_pictures
 
     out: dict[str, bytes] = {}
     site = cal.suggestions[0] if cal.suggestions else None
@@ -146,14 +146,14 @@ def pictures_of(result: "RunResult", cal: Calibration) -> dict[str, bytes]:
         if site is not None and site.youden_db is not None:
             t = cal.tables[LEVELS.index(site.youden_db)]
             marks.append((1 - t.specificity, t.sensitivity, f"best {site.youden_db:g} dB"))
-        out["roc"] = pictures.roc_curve(cal.roc_fpr, cal.roc_tpr, None if cal.auc != cal.auc else cal.auc,
+        out["roc"] = site_pictures.roc_curve(cal.roc_fpr, cal.roc_tpr, None if cal.auc != cal.auc else cal.auc,
                                         [m for m in marks if m[0] == m[0] and m[1] == m[1]])
     lowest = result.site.zones.classes[0].threshold_db
     agree = None
     pts = cal.point_xy if cal.point_xy is not None else np.zeros((0, 2))
     if cal.point_ver is not None and cal.point_hollow is not None:
         agree = (cal.point_ver >= lowest) == cal.point_hollow
-    out["map"] = pictures.agreement_map(result, cal.scan_hollow, cal.traced, pts, agree, lowest)
+    out["map"] = site_pictures.agreement_map(result, cal.scan_hollow, cal.traced, pts, agree, lowest)
     return out
 
 

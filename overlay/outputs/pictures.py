@@ -1,105 +1,39 @@
-"""Pictures an engineer checks before trusting a number: scan previews, zone sheets, a site map,
-and the written DXF rendered back.
+"""Pictures of one scan an engineer checks before trusting a number: the VER map with its zones
+(full preview or campaign thumbnail), the sound field under it, a defect's spectrum and its sheet.
 
-Each function returns PNG bytes (no file I/O here).  Colour maps are
-perceptually uniform and readable with colour-vision deficiency (cividis for
-VER; classes by a blue–orange–vermillion set of the Okabe–Ito palette plus
-line styles, so they never rely on colour alone).
+Each function returns PNG bytes (no file I/O here); site-wide pictures are in site_pictures.py,
+what they share in plotting.py.
 """
 
 from __future__ import annotations
 
-import io
-import math
 from typing import TYPE_CHECKING
 
 import matplotlib
 
-matplotlib.use("Agg")
+matplotlib.use("Agg")  # no display: pictures are files
 import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-import shapely  # noqa: E402
-from matplotlib.image import AxesImage  # noqa: E402
-from matplotlib.lines import Line2D  # noqa: E402
-from matplotlib.patches import Patch  # noqa: E402
-from matplotlib.patches import Polygon as MplPolygon  # noqa: E402
-from matplotlib.ticker import FuncFormatter  # noqa: E402
-from matplotlib.transforms import Affine2D  # noqa: E402
-from matplotlib.tri import Triangulation  # noqa: E402
+import numpy as np
+import shapely
+from matplotlib.image import AxesImage
+from matplotlib.ticker import FuncFormatter
+from matplotlib.transforms import Affine2D
+from matplotlib.tri import Triangulation
 
-from overlay.outputs import palette  # noqa: E402
+from overlay.outputs import plotting
+from overlay.outputs.plotting import (
+    MARGINS,
+    PREVIEW_SIZE,
+    SHEET_SIZE,
+    TITLE_Y,
+    VER_CMAP,
+)
 
 if TYPE_CHECKING:
     from overlay.job import RunResult
     from overlay.quantities import Defect
     from overlay.scan import ScanResult
     from overlay.zones.zone import Zone
-
-VER_CMAP = "cividis"
-TITLE_Y = 1.01  # a fixed title height: placed automatically, each title measured every tick label first
-DPI = 110
-PREVIEW_SIZE = (8.0, 6.0)  # inches → 880 × 660 pixels
-SHEET_SIZE = (9.0, 3.6)
-SITE_SIZE = (11.0, 5.0)
-# Fixed margins (fractions of the figure) rather than a layout engine: constrained layout took half
-# of each picture's drawing time, which counts over a campaign's thousands of pictures.
-MARGINS = {
-    "preview": {"left": 0.10, "right": 0.97, "bottom": 0.09, "top": 0.94},
-    "sheet": {"left": 0.08, "right": 0.98, "bottom": 0.14, "top": 0.90, "wspace": 0.22},
-    "site": {"left": 0.07, "right": 0.98, "bottom": 0.16, "top": 0.93},
-}
-
-
-def _png(fig: plt.Figure) -> bytes:
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=DPI)
-    plt.close(fig)
-    return buf.getvalue()
-
-
-def _rings(ax: plt.Axes, geom: object, **kw: object) -> None:
-    for part in shapely.get_parts(geom):
-        if part.is_empty:
-            continue
-        for ring in [part.exterior, *part.interiors]:
-            xy = np.asarray(ring.coords)
-            ax.plot(xy[:, 0], xy[:, 1], **kw)
-
-
-def _class_style(result: "RunResult", name: str) -> tuple[str, str]:
-    """(colour, line style) of a class: the palette every output shares."""
-    style = palette.for_site(result.site)[name]
-    return style.hex, style.dash
-
-
-def _scale_bar(ax: plt.Axes, unit_m: float) -> None:
-    x0, x1 = ax.get_xlim()
-    y0, y1 = ax.get_ylim()
-    span_m = (x1 - x0) * unit_m
-    nice = 10 ** math.floor(math.log10(span_m / 4))
-    for k in (5, 2, 1):
-        if k * nice <= span_m / 4:
-            nice *= k
-            break
-    length = nice / unit_m
-    xs, ys = x1 - 0.04 * (x1 - x0) - length, y0 + 0.05 * (y1 - y0)
-    ax.plot([xs, xs + length], [ys, ys], color="black", lw=3, solid_capstyle="butt", zorder=5)
-    ax.text(xs + length / 2, ys + 0.015 * (y1 - y0), f"{nice:g} m", ha="center", va="bottom", fontsize=8, zorder=5,
-            bbox={"fc": "white", "ec": "none", "alpha": 0.8, "pad": 1})
-
-
-def _north(ax: plt.Axes, result: "RunResult") -> None:
-    """An arrow to grid north in the drawing frame (from the map placement), or the drawing's +y axis."""
-    if result.to_map is not None:
-        rot = math.radians(result.to_map.rotation_deg)  # drawing +x → map, counter-clockwise
-        dx, dy = -math.sin(-rot), math.cos(-rot)  # map north (0, 1) seen in the drawing frame
-        label = "N"
-    else:
-        dx, dy, label = 0.0, 1.0, "+y"
-    ax.annotate(label, xy=(0.95 + 0.035 * dx, 0.86 + 0.07 * dy), xytext=(0.95, 0.86), xycoords="axes fraction",
-                textcoords="axes fraction", ha="center", va="center", fontsize=9, zorder=5,
-                bbox={"fc": "white", "ec": "none", "alpha": 0.8, "pad": 1},
-                arrowprops={"arrowstyle": "-|>", "color": "black"})
 
 
 def _triangulation(xy: np.ndarray, rc: np.ndarray | None = None, ok: np.ndarray | None = None) -> Triangulation:
@@ -191,16 +125,16 @@ def scan_preview(result: "RunResult", scan: "ScanResult") -> bytes:
     bad = ~scan.valid
     if bad.any():
         ax.scatter(xy[bad, 0], xy[bad, 1], marker="x", color="black", s=14, linewidths=0.8, label="invalid point")
-    _rings(ax, scan.extent, color="0.3", lw=0.8, ls=":")
+    plotting.rings(ax, scan.extent, color="0.3", lw=0.8, ls=":")
     for z in zones_of(result, scan):
-        colour, ls = _class_style(result, z.class_name)
-        _rings(ax, z.contour, color=colour, lw=1.6, ls=ls)
+        colour, ls = plotting.class_style(result, z.class_name)
+        plotting.rings(ax, z.contour, color=colour, lw=1.6, ls=ls)
         if z.defect_id == z.zone_id:
             p = z.contour.representative_point()
             ax.annotate(z.zone_id, (p.x, p.y), fontsize=7, ha="center", color="white",
                         bbox={"boxstyle": "round,pad=0.2", "fc": "black", "alpha": 0.6, "lw": 0})
     for c in result.site.zones.classes:
-        colour, ls = _class_style(result, c.name)
+        colour, ls = plotting.class_style(result, c.name)
         ax.plot([], [], color=colour, ls=ls, label=f"{c.name} >= {c.threshold_db:g} dB")
     for t in scan.targets:
         ax.plot(*t.drawing, marker="^", color="#009E73", ms=7, mec="black")
@@ -214,9 +148,9 @@ def scan_preview(result: "RunResult", scan: "ScanResult") -> bytes:
     ax.set_title(f"scan {scan.scan_id} — {scan.element}   (target residual arrows ×50, RMS {scan.fit.rms * 1000 * result.unit_m:.1f} mm)",
                  fontsize=10, y=TITLE_Y)
     ax.legend(loc="upper left", fontsize=7, framealpha=0.85)
-    _scale_bar(ax, result.unit_m)
-    _north(ax, result)
-    return _png(fig)
+    plotting.scale_bar(ax, result.unit_m)
+    plotting.north(ax, result)
+    return plotting.png(fig)
 
 
 THUMB_SIZE = (5.0, 3.6)  # inches → 550 × 396 pixels
@@ -242,13 +176,13 @@ def scan_thumbnail(result: "RunResult", scan: "ScanResult") -> bytes:
     ok = scan.valid & np.isfinite(scan.ver_db)
     lo, hi = ver_scale(result)
     _draw_map(ax, scan, scan.ver_db, ok, cmap=VER_CMAP, vmin=lo, vmax=hi)
-    _rings(ax, scan.extent, color="0.3", lw=0.8, ls=":")
+    plotting.rings(ax, scan.extent, color="0.3", lw=0.8, ls=":")
     bad = ~scan.valid
     if bad.any():
         ax.plot(xy[bad, 0], xy[bad, 1], "x", color="black", ms=3, mew=0.6)
     zones = zones_of(result, scan)
     for c in result.site.zones.classes:
-        colour, ls = _class_style(result, c.name)
+        colour, ls = plotting.class_style(result, c.name)
         rings = [np.asarray(r.coords) for z in zones if z.class_name == c.name
                  for part in shapely.get_parts(z.contour) for r in (part.exterior, *part.interiors)]
         if rings:
@@ -265,8 +199,8 @@ def scan_thumbnail(result: "RunResult", scan: "ScanResult") -> bytes:
     ax.margins(0.06)
     fig.text(0.01, 0.97, f"scan {scan.scan_id} — {scan.element}   fit RMS {scan.fit.rms * 1000 * result.unit_m:.1f} mm",
              fontsize=8, va="top")
-    _scale_bar(ax, result.unit_m)
-    return _png(fig)
+    plotting.scale_bar(ax, result.unit_m)
+    return plotting.png(fig)
 
 
 def defect_spectrum(result: "RunResult", defect: "Defect") -> bytes:
@@ -295,7 +229,7 @@ def defect_spectrum(result: "RunResult", defect: "Defect") -> bytes:
     fig.text(0.01, 0.98, f"defect {defect.defect_id}: contours {_contour_areas(result, defect)} m²; outline "
              f"{low.outline_area_m2:.4f} m² ({low.outline_basis})\n{top.zone_id}: peak {top.peak_hz:.0f} Hz, "
              f"confidence {top.confidence:.2f}", fontsize=7, va="top")
-    return _png(fig)
+    return plotting.png(fig)
 
 
 def _contour_areas(result: "RunResult", defect: "Defect") -> str:
@@ -319,19 +253,19 @@ def field_map(result: "RunResult", scan: "ScanResult") -> bytes:
     cs = ax.tricontour(tri, values, levels=np.arange(np.floor(level[ok].min()), level[ok].max() + 1, 1.0),
                        colors="white", linewidths=0.6)
     ax.clabel(cs, fmt="%g dB", fontsize=6)
-    _rings(ax, scan.extent, color="0.3", lw=0.8, ls=":")
+    plotting.rings(ax, scan.extent, color="0.3", lw=0.8, ls=":")
     for z in zones_of(result, scan):
         if z.defect_id == z.zone_id:
-            _rings(ax, z.contour, color="white", lw=1.2)
+            plotting.rings(ax, z.contour, color="white", lw=1.2)
     ax.set_aspect("equal")
     ax.margins(0.12)
     ax.set_xlabel(f"drawing x ({result.site.drawing_unit})")
     ax.set_ylabel(f"drawing y ({result.site.drawing_unit})")
     ax.set_title(f"scan {scan.scan_id} — sound field: spans {ref.field_span_db:.1f} dB, scatter "
                  f"{ref.field_scatter_db:.1f} dB; VER is measured against it", fontsize=10, y=TITLE_Y)
-    _scale_bar(ax, result.unit_m)
-    _north(ax, result)
-    return _png(fig)
+    plotting.scale_bar(ax, result.unit_m)
+    plotting.north(ax, result)
+    return plotting.png(fig)
 
 
 def zones_of(result: "RunResult", scan: "ScanResult") -> list["Zone"]:
@@ -379,178 +313,4 @@ def defect_sheet(result: "RunResult", defect: "Defect") -> bytes:
     a2.set_xlabel("per-point peak frequency (Hz)")
     a2.set_ylabel("points")
     a2.set_title(f"{top.zone_id}: peak {top.peak_hz:.0f} Hz, confidence {top.confidence:.2f}", fontsize=8, y=TITLE_Y)
-    return _png(fig)
-
-
-def element_map(result: "RunResult", element: str, drawing_lines: list[np.ndarray] | None = None) -> bytes:
-    """One element at a readable scale: its scans, zones by class with their defect ids, outlines and
-    repair footprints — the site map's zones are dots on a long structure, here they are not."""
-    fig, ax = plt.subplots(figsize=PREVIEW_SIZE)
-    fig.subplots_adjust(**MARGINS["preview"])
-    scans = [s for s in result.scans if s.element == element and not s.extent.is_empty]
-    zones = [z for z in result.zones if z.element == element]
-    box = shapely.union_all([s.extent for s in scans] + [z.footprint for z in zones]).bounds
-    pad = 0.08 * max(box[2] - box[0], box[3] - box[1])
-    window = shapely.box(box[0] - pad, box[1] - pad, box[2] + pad, box[3] + pad)
-    for line in drawing_lines or []:
-        clipped = shapely.intersection(shapely.LineString(line), window) if len(line) > 1 else None
-        if clipped is not None and not clipped.is_empty:
-            for part in shapely.get_parts(clipped):
-                xy = np.asarray(part.coords)
-                ax.plot(xy[:, 0], xy[:, 1], color="0.7", lw=0.6)
-    for s in scans:
-        _rings(ax, s.extent, color="0.35", lw=0.8, ls=":")
-        x0, _, _, y1 = s.extent.bounds
-        ax.text(x0, y1, s.scan_id, fontsize=7, va="bottom", color="0.35")
-    for z in zones:
-        colour, ls = _class_style(result, z.class_name)
-        ax.add_patch(MplPolygon(np.asarray(z.contour.exterior.coords), closed=True, fc=colour, ec=colour, alpha=0.45,
-                                lw=0.8))
-        if z.defect_id == z.zone_id:
-            _rings(ax, z.defect, color=palette.hex_of(palette.DEFECT_RGB), lw=1.0, ls="--")
-            _rings(ax, z.footprint, color=palette.hex_of(palette.REPAIR_RGB), lw=1.2)
-            x0, _, x1, y1 = z.footprint.bounds
-            ax.annotate(z.zone_id, ((x0 + x1) / 2, y1), fontsize=7, ha="center", va="bottom")
-    handles = [Patch(color=_class_style(result, c.name)[0], alpha=0.45, label=f"{c.name} >= {c.threshold_db:g} dB")
-               for c in result.site.zones.classes] + [
-        Line2D([], [], color=palette.hex_of(palette.DEFECT_RGB), ls="--", label="defect outline"),
-        Line2D([], [], color=palette.hex_of(palette.REPAIR_RGB), label="repair footprint")]
-    ax.legend(handles=handles, loc="upper left", fontsize=7, framealpha=0.85)
-    ax.set_xlim(window.bounds[0], window.bounds[2])
-    ax.set_ylim(window.bounds[1], window.bounds[3])
-    ax.set_aspect("equal")
-    ax.set_xlabel(f"drawing x ({result.site.drawing_unit})")
-    ax.set_ylabel(f"drawing y ({result.site.drawing_unit})")
-    ax.set_title(f"element {element}: {len({z.defect_id for z in zones})} defect(s), {len(scans)} scan(s)", fontsize=10, y=TITLE_Y)
-    _scale_bar(ax, result.unit_m)
-    _north(ax, result)
-    return _png(fig)
-
-
-def site_map(result: "RunResult", drawing_lines: list[np.ndarray] | None = None) -> bytes:
-    """All scans and zones on the drawing outline (the base drawing's lines in grey, when given)."""
-    fig, ax = plt.subplots(figsize=SITE_SIZE)
-    fig.subplots_adjust(**MARGINS["site"])
-    for line in drawing_lines or []:
-        ax.plot(line[:, 0], line[:, 1], color="0.65", lw=0.6)
-    for s in result.scans:
-        _rings(ax, s.extent, color="0.35", lw=0.8, ls=":")
-        if not s.extent.is_empty:
-            x0, _, _, y1 = s.extent.bounds
-            ax.text(x0, y1, s.scan_id, fontsize=7, va="bottom")
-    for z in result.zones:
-        colour, ls = _class_style(result, z.class_name)
-        ax.add_patch(MplPolygon(np.asarray(z.contour.exterior.coords), closed=True, fc=colour, ec=colour, alpha=0.5, lw=0.8))
-        if z.defect_id == z.zone_id:
-            _rings(ax, z.footprint, color=palette.hex_of(palette.REPAIR_RGB), lw=0.8)
-    handles = [Patch(color=_class_style(result, c.name)[0], alpha=0.5, label=f"{c.name} >= {c.threshold_db:g} dB")
-               for c in result.site.zones.classes] + [Line2D([], [], color=palette.hex_of(palette.REPAIR_RGB), label="repair footprint")]
-    ax.set_aspect("equal")
-    ax.autoscale_view()
-    ax.set_xlabel(f"drawing x ({result.site.drawing_unit})")
-    ax.set_ylabel(f"drawing y ({result.site.drawing_unit})")
-    ax.margins(0.04)
-    fig.legend(handles=handles, loc="lower center", ncol=4, fontsize=8, frameon=False)
-    ax.set_title(f"{result.site.name} {result.site.structure} — screening zones (element pictures show them "
-                 "at a readable scale)", fontsize=10, y=TITLE_Y)
-    _fit_height(fig, ax)
-    _scale_bar(ax, result.unit_m)
-    _north(ax, result)
-    return _png(fig)
-
-
-def roc_curve(fpr: list[float], tpr: list[float], auc_value: float | None,
-              marks: list[tuple[float, float, str]] = ()) -> bytes:
-    """The ROC curve of VER against the sounding verdicts, the chance line, the AUC and marked levels."""
-    fig = plt.figure(figsize=(5.0, 4.4))
-    ax = fig.add_axes((0.14, 0.12, 0.8, 0.78))
-    ax.plot([0, 1], [0, 1], color="0.6", lw=0.8, ls="--", label="chance")
-    ax.plot(fpr, tpr, color="#D55E00", lw=1.6, drawstyle="default",
-            label=f"VER against sounding (AUC {auc_value:.3f})" if auc_value is not None else "VER against sounding")
-    for x, y, label in marks:
-        ax.plot([x], [y], "o", color="#0072B2", ms=5)
-        ax.annotate(label, (x, y), xytext=(6, -10), textcoords="offset points", fontsize=7)
-    ax.set_xlim(-0.01, 1.01)
-    ax.set_ylim(-0.01, 1.01)
-    ax.set_aspect("equal")
-    ax.set_xlabel("1 - specificity (sound points called hollow)")
-    ax.set_ylabel("sensitivity (hollow points found)")
-    ax.legend(loc="lower right", fontsize=7)
-    ax.set_title("scans against hammer sounding, over the VER levels", fontsize=9, y=TITLE_Y)
-    return _png(fig)
-
-
-def agreement_map(result: "RunResult", scan_hollow: object, traced: object, points: np.ndarray,
-                  agree: np.ndarray | None, level_db: float) -> bytes:
-    """Where the scans (at ``level_db``) and the sounding agree and disagree, on the drawing."""
-    fig, ax = plt.subplots(figsize=SITE_SIZE)
-    fig.subplots_adjust(**MARGINS["site"])
-    for s in result.scans:
-        _rings(ax, s.extent, color="0.55", lw=0.7, ls=":")
-    both = shapely.intersection(scan_hollow, traced)
-    for geom, colour, label in ((shapely.difference(scan_hollow, traced), "#E69F00", "scans only"),
-                                (shapely.difference(traced, scan_hollow), "#0072B2", "sounding only"),
-                                (both, "#009E73", "both")):
-        for part in shapely.get_parts(geom):
-            if part.geom_type == "Polygon" and not part.is_empty:
-                ax.add_patch(MplPolygon(np.asarray(part.exterior.coords), closed=True, fc=colour, ec=colour,
-                                        alpha=0.6, lw=0.6))
-    handles = [Patch(color=c, alpha=0.6, label=f"hollow: {t}") for c, t in
-               (("#009E73", "both"), ("#E69F00", "scans only"), ("#0072B2", "sounding only"))]
-    if len(points) and agree is not None:
-        ax.plot(points[agree, 0], points[agree, 1], "o", ms=2.5, color="0.2", label="point: agree")
-        ax.plot(points[~agree, 0], points[~agree, 1], "x", ms=4, color="#D55E00", label="point: disagree")
-        handles += [Line2D([], [], marker="o", ls="", color="0.2", ms=3, label="point: agree"),
-                    Line2D([], [], marker="x", ls="", color="#D55E00", ms=4, label="point: disagree")]
-    ax.set_aspect("equal")
-    ax.autoscale_view()
-    ax.margins(0.04)
-    ax.set_xlabel(f"drawing x ({result.site.drawing_unit})")
-    ax.set_ylabel(f"drawing y ({result.site.drawing_unit})")
-    fig.legend(handles=handles, loc="lower center", ncol=5, fontsize=8, frameon=False)
-    ax.set_title(f"scans at {level_db:g} dB against the sounding", fontsize=10, y=TITLE_Y)
-    _fit_height(fig, ax)
-    _scale_bar(ax, result.unit_m)
-    return _png(fig)
-
-
-def _fit_height(fig: plt.Figure, ax: plt.Axes, below_in: float = 1.0, above_in: float = 0.45) -> None:
-    """Figure height to the data's aspect (equal axes), so a long structure is not a thin strip in white."""
-    x0, x1 = ax.get_xlim()
-    y0, y1 = ax.get_ylim()
-    width_in = fig.get_figwidth() * (MARGINS["site"]["right"] - MARGINS["site"]["left"])
-    axes_in = width_in * abs(y1 - y0) / max(abs(x1 - x0), 1e-12)
-    height = float(np.clip(axes_in + below_in + above_in, 3.0, 10.0))
-    fig.set_figheight(height)
-    fig.subplots_adjust(bottom=below_in / height, top=1.0 - above_in / height)
-
-
-def drawing_lines(path: object) -> list[np.ndarray]:
-    """Lines and polylines of a DXF's model space (for the site map's background)."""
-    from overlay.exporters.dxf import read_base_dxf
-
-    doc = read_base_dxf(path)
-    out = []
-    for e in doc.modelspace().query("LINE LWPOLYLINE"):
-        if e.dxftype() == "LINE":
-            out.append(np.array([(e.dxf.start.x, e.dxf.start.y), (e.dxf.end.x, e.dxf.end.y)]))
-        else:
-            pts = np.array([p[:2] for p in e.get_points()])
-            out.append(np.vstack([pts, pts[:1]]) if e.closed else pts)
-    return out
-
-
-def dxf_preview(path: object) -> bytes:
-    """The written DXF rendered back with ezdxf's drawing add-on, as CAD would show it."""
-    import ezdxf
-    from ezdxf.addons.drawing import Frontend, RenderContext
-    from ezdxf.addons.drawing.config import BackgroundPolicy, Configuration
-    from ezdxf.addons.drawing.matplotlib import MatplotlibBackend
-
-    doc = ezdxf.readfile(path)
-    fig = plt.figure(figsize=SITE_SIZE)
-    ax = fig.add_axes((0, 0, 1, 1))
-    ctx = RenderContext(doc)
-    Frontend(ctx, MatplotlibBackend(ax), config=Configuration(background_policy=BackgroundPolicy.WHITE)).draw_layout(
-        doc.modelspace(), finalize=True)
-    return _png(fig)
+    return plotting.png(fig)

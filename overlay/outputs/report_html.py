@@ -222,7 +222,8 @@ def _ver_key(result: "RunResult") -> str:
     from matplotlib import colormaps
     from matplotlib.colors import to_hex
 
-    from overlay.outputs.pictures import VER_CMAP, ver_scale
+    from overlay.outputs.pictures import ver_scale
+    from overlay.outputs.plotting import VER_CMAP
 
     lo, hi = ver_scale(result)
     cmap = colormaps[VER_CMAP]

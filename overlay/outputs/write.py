@@ -157,18 +157,18 @@ def _share(result: "RunResult", dxf_path: Path | None) -> None:
 
 
 def _draw(task: tuple[str, str, str]) -> bytes:
-    from overlay.outputs import pictures
+    from overlay.outputs import pictures, site_pictures
     from overlay.quantities import defects
 
     _, kind, key = task
     result, dxf_path = _SHARED["result"], _SHARED["dxf"]
     if kind in ("site", "element") and "lines" not in _SHARED:
         base = result.site.dxf.base
-        _SHARED["lines"] = pictures.drawing_lines(base) if base else None
+        _SHARED["lines"] = site_pictures.drawing_lines(base) if base else None
     if kind == "site":
-        return pictures.site_map(result, _SHARED["lines"])
+        return site_pictures.site_map(result, _SHARED["lines"])
     if kind == "element":
-        return pictures.element_map(result, key, _SHARED["lines"])
+        return site_pictures.element_map(result, key, _SHARED["lines"])
     compact = _SHARED["compact"]  # a campaign: the compact pictures, drawn in a fraction of the time
     if kind in ("scan", "field"):
         scan = next(s for s in result.scans if s.scan_id == key)
@@ -185,8 +185,8 @@ def _draw(task: tuple[str, str, str]) -> bytes:
 
         d = recorded_calibration(result)
         assert d is not None
-        return pictures.roc_curve(d["roc"]["fpr"], d["roc"]["tpr"], d["auc"])
-    return pictures.dxf_preview(dxf_path)
+        return site_pictures.roc_curve(d["roc"]["fpr"], d["roc"]["tpr"], d["auc"])
+    return site_pictures.dxf_preview(dxf_path)
 
 
 def draw_pictures(result: "RunResult", dxf_path: Path | None, *, jobs: int = 1,
