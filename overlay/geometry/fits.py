@@ -3,8 +3,8 @@
 Every fit reports per-point residuals, RMS, the largest residual and the
 leave-one-out error of every point (fit without it, predict it): a target
 whose leave-one-out error is much larger than its residual is the one that
-holds the fit up.  Degenerate point sets (too few, coincident, collinear,
-badly conditioned) are refused with the names of the points.
+holds the fit up.  Point sets that do not determine the model (too few, coincident, collinear for
+affine and projective, all but one on a line for projective) are refused with the names of the points.
 """
 
 from __future__ import annotations
@@ -23,7 +23,6 @@ from overlay.geometry.transforms import Affine, Projective, Similarity, Transfor
 MIN_POINTS = {"similarity": 2, "affine": 3, "projective": 4}
 MODELS = tuple(MIN_POINTS)
 COLLINEAR = 1e-3  # smallest / largest singular value of the centred points
-CONDITION = 1e8
 
 
 @dataclass(frozen=True)
@@ -121,14 +120,14 @@ def _projective(src: np.ndarray, dst: np.ndarray) -> Projective:
     return t
 
 
-def check_points(model: str, src: np.ndarray, names: Sequence[str], what: str = "targets") -> None:
+def check_points(model: str, src: np.ndarray, names: Sequence[str], what: str) -> None:
     """Refuse point sets the model cannot be fitted from, naming the points."""
     n = len(src)
     need = MIN_POINTS[model]
     label = ", ".join(names) or "none"
     if n < need:
         raise RegistrationError(f"{model} fit needs at least {need} {what}, got {n} ({label})", field=what)
-    span = float(np.ptp(src, axis=0).max()) if n else 0.0
+    span = float(np.ptp(src, axis=0).max())  # n >= 2 here
     for i, j in combinations(range(n), 2):
         if np.hypot(*(src[i] - src[j])) <= 1e-9 * max(span, 1.0):
             raise RegistrationError(f"{what} {names[i]} and {names[j]} coincide; a fit needs distinct points", field=what)
@@ -139,13 +138,26 @@ def check_points(model: str, src: np.ndarray, names: Sequence[str], what: str = 
         raise RegistrationError(f"{what} {label} are (nearly) collinear; an {model} fit needs them spread in two directions",
                                 field=what)
     if model == "projective":
-        for trio in combinations(range(n), 3):
-            p = src[list(trio)]
-            sv3 = np.linalg.svd(p - p.mean(axis=0), compute_uv=False)
-            if n == 4 and sv3[-1] <= COLLINEAR * sv3[0]:
-                raise RegistrationError(
-                    f"{what} {', '.join(names[k] for k in trio)} are collinear; 4 points for a projective fit "
-                    "need no three on a line", field=what)
+        on_line = _all_but_one_on_a_line(src)
+        if on_line is not None:
+            raise RegistrationError(
+                f"{what} {', '.join(names[k] for k in on_line)} are collinear; a projective fit needs 4 {what} of "
+                "which no three are on a line", field=what)
+
+
+def _all_but_one_on_a_line(src: np.ndarray) -> list[int] | None:
+    """Indices of the points on a line holding all but at most one of them, or None.  Then no four of
+    them are in general position, and a homography is not determined: the fit would reach zero
+    residuals with any of many transforms (measured: a point 1.2 m off at RMS 5e-16)."""
+    n = len(src)
+    for i, j in combinations(range(n), 2):
+        d = src[j] - src[i]
+        length = float(np.hypot(*d))
+        off = np.abs(d[0] * (src[:, 1] - src[i, 1]) - d[1] * (src[:, 0] - src[i, 0])) / length
+        on = np.nonzero(off <= COLLINEAR * length)[0]
+        if len(on) >= n - 1:
+            return [int(k) for k in on]
+    return None
 
 
 def fit_points(model: str, src: np.ndarray, dst: np.ndarray, names: Sequence[str], *, what: str = "targets") -> Fit:
@@ -159,10 +171,6 @@ def fit_points(model: str, src: np.ndarray, dst: np.ndarray, names: Sequence[str
     resid = dst - t.apply(src)
     if not np.isfinite(resid).all():
         raise RegistrationError(f"{model} fit of {what} {', '.join(names)} is singular", field=what)
-    cond = _condition(model, src)
-    if cond > CONDITION:
-        raise RegistrationError(f"{model} fit of {what} {', '.join(names)} is badly conditioned (condition {cond:.2g})",
-                                field=what)
     loo = np.full(len(src), np.nan)
     if len(src) > MIN_POINTS[model]:
         for k in range(len(src)):
@@ -174,16 +182,6 @@ def fit_points(model: str, src: np.ndarray, dst: np.ndarray, names: Sequence[str
             tk = _solve(model, src[keep], dst[keep])
             loo[k] = float(np.hypot(*(dst[k] - tk.apply(src[k][None, :])[0])))
     return Fit(t, model, tuple(names), resid, loo)
-
-
-def _condition(model: str, src: np.ndarray) -> float:
-    """Condition number of the (normalised) linear design: large when the points barely span two directions."""
-    p = src - src.mean(axis=0)
-    scale = np.abs(p).max() or 1.0
-    p = p / scale
-    design = np.column_stack([np.ones(len(p)), p[:, 0], p[:, 1]])
-    sv = np.linalg.svd(design, compute_uv=False)
-    return float(sv[0] / sv[-1]) if sv[-1] > 0 else float("inf")
 
 
 def check_fit(fit: Fit, tolerance: float, unit: str, *, accept: bool = False, source: str | None = None) -> bool:
