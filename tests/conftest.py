@@ -14,6 +14,16 @@ from overlay.io.site import read_site
 from overlay.job import run_site
 
 
+@pytest.fixture(autouse=True)
+def _fresh_tables() -> None:
+    """Each test computes the plate tables it uses: a cached value left by an earlier test (or by the
+    mutation run's first pass) would let a test pass without running the code it checks."""
+    from overlay.zones import outline, plate
+
+    for cached in (outline.clamped_lambda2_eq, outline._table, plate.clamped_lambda, plate.simply_supported_lambda):
+        cached.cache_clear()
+
+
 def write_bundle(
     folder: Path,
     *,

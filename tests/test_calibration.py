@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import json
 import math
+import warnings
 import shutil
 import sqlite3
 from pathlib import Path
@@ -280,3 +281,44 @@ def test_the_bootstrap_interval_is_the_same_every_run_and_narrow_when_the_data_a
     a, b = bootstrap_level(levels, noisy, truth), bootstrap_level(levels, noisy, truth)
     assert a == b and a[0] < a[1]  # a fixed seed: the same interval on every run; real spread when the data overlap
     assert bootstrap_level(levels, noisy[:3], np.zeros(3, bool)) != bootstrap_level(levels, noisy, truth)
+
+
+def test_agreement_statistics_at_their_edges() -> None:
+    # Wilson (1927) by its formula: no observations give no interval; 1 of 1 (hand-worked, z = 1.96)
+    # gives 0.2065..1; an interval never leaves 0..1 even where rounding would push it out (16 of 16
+    # sums to 1.0000000000000002 unclipped, 0 of 21 to -1.4e-17)
+    assert all(math.isnan(v) for v in wilson(0, 0))
+    lo, hi = wilson(1, 1)
+    assert abs(lo - 0.2065) <= 5e-5 and hi == 1.0
+    assert wilson(16, 16)[1] == 1.0 and wilson(0, 21)[0] == 0.0
+    # Cohen's kappa (p_o − p_e) / (1 − p_e): undefined with no observations or when both raters put
+    # everything in one class (p_e = 1; scikit-learn gives nan there too); one disagreement: p_o = p_e = 0
+    assert math.isnan(cohen_kappa(Counts(0, 0, 0, 0)))
+    assert math.isnan(cohen_kappa(Counts(5, 0, 0, 0)))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # scikit-learn says why it is undefined
+        assert math.isnan(sklearn_metrics.cohen_kappa_score([1] * 5, [1] * 5))
+    assert cohen_kappa(Counts(0, 1, 0, 0)) == 0.0
+
+
+def test_reaching_levels_go_by_the_level_not_the_order_given() -> None:
+    # the same four levels and tables as above, listed in another order: the same levels are chosen
+    from overlay.calibration.agreement import reaching_sensitivity, reaching_specificity
+
+    levels = [8.0, 2.0, 6.0, 4.0]
+    tables = [Counts(5, 0, 5, 10), Counts(10, 5, 0, 5), Counts(8, 1, 2, 19), Counts(9, 1, 1, 9)]
+    assert levels[reaching_sensitivity(levels, tables, 0.9)] == 4.0
+    assert levels[reaching_specificity(levels, tables, 0.95)] == 6.0
+
+
+def test_area_agreement_in_a_millimetre_drawing() -> None:
+    # a drawing in mm: areas in drawing units² times 1e-6 are m² — the same circles as above, 1000× larger
+    r1, r2, d = 300.0, 250.0, 200.0
+    a = shapely.Point(0, 0).buffer(r1, quad_segs=512)
+    b = shapely.Point(d, 0).buffer(r2, quad_segs=512)
+    agree = area_agreement(6.0, a, b, shapely.box(-1000, -1000, 1000, 1000), area_per_unit=1e-6)
+    both = lens(0.3, 0.25, 0.2)
+    assert abs(agree.both_m2 - both) <= 2e-4 * both
+    assert abs(agree.either_m2 - (math.pi * (0.3**2 + 0.25**2) - both)) <= 2e-4
+    assert abs(agree.scan_only_m2 - (math.pi * 0.09 - both)) <= 2e-4
+    assert abs(agree.sounding_only_m2 - (math.pi * 0.0625 - both)) <= 2e-4
