@@ -13,9 +13,9 @@ from __future__ import annotations
 
 import json
 import math
-import warnings
 import shutil
 import sqlite3
+import warnings
 from pathlib import Path
 
 import numpy as np
@@ -27,6 +27,7 @@ from overlay.calibration.agreement import (
     area_agreement,
     auc,
     best_youden,
+    bootstrap_level,
     cohen_kappa,
     counts_at,
     roc,
@@ -305,10 +306,34 @@ def test_reaching_levels_go_by_the_level_not_the_order_given() -> None:
     # the same four levels and tables as above, listed in another order: the same levels are chosen
     from overlay.calibration.agreement import reaching_sensitivity, reaching_specificity
 
-    levels = [8.0, 2.0, 6.0, 4.0]
-    tables = [Counts(5, 0, 5, 10), Counts(10, 5, 0, 5), Counts(8, 1, 2, 19), Counts(9, 1, 1, 9)]
+    levels = [4.0, 2.0, 8.0, 6.0]
+    tables = [Counts(9, 1, 1, 9), Counts(10, 5, 0, 5), Counts(5, 0, 5, 10), Counts(8, 1, 2, 19)]
     assert levels[reaching_sensitivity(levels, tables, 0.9)] == 4.0
     assert levels[reaching_specificity(levels, tables, 0.95)] == 6.0
+    # Youden's J ties between 8 and 4 dB (J = 0.5 at both): the lower level is the one suggested
+    tied = [Counts(5, 0, 5, 10), Counts(10, 5, 0, 5), Counts(9, 4, 1, 6)]
+    assert [t.youden for t in tied] == [0.5, 0.5, 0.5]
+    assert [8.0, 2.0, 4.0][best_youden([8.0, 2.0, 4.0], tied)] == 2.0
+
+
+def test_roc_without_one_kind_of_point_is_undefined_as_in_scikit_learn() -> None:
+    # no hollow point: no true-positive rate (scikit-learn: nan, with a warning), and no AUC; no sound
+    # point: no false-positive rate. A 0/1 list is read as verdicts, not as numbers.
+    ver = [3.0, 1.0, 2.0, 2.0, 5.0]
+    fpr, tpr, thr = roc(np.array(ver), np.zeros(5, bool))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        r_fpr, r_tpr, _ = sklearn_metrics.roc_curve([0] * 5, ver, drop_intermediate=False)
+    assert np.allclose(fpr, r_fpr) and np.isnan(tpr).all() and np.isnan(r_tpr).all() and len(tpr) == len(thr) == 5
+    assert math.isnan(auc(np.array(ver), np.zeros(5, bool)))
+    fpr, tpr, _ = roc(np.array(ver), np.ones(5, bool))
+    assert np.isnan(fpr).all() and len(fpr) == 5 and math.isnan(auc(np.array(ver), np.ones(5, bool)))
+    verdicts = [1, 0, 0, 1, 1]
+    fpr, tpr, _ = roc(ver, verdicts)
+    r_fpr, r_tpr, _ = sklearn_metrics.roc_curve(verdicts, ver, drop_intermediate=False)
+    assert np.allclose(fpr, r_fpr) and np.allclose(tpr, r_tpr)
+    assert bootstrap_level([1.5, 2.5, 4.0], np.array(ver), np.array(verdicts), rounds=50) == bootstrap_level(
+        [1.5, 2.5, 4.0], np.array(ver), np.array(verdicts, dtype=bool), rounds=50)
 
 
 def test_area_agreement_in_a_millimetre_drawing() -> None:

@@ -35,6 +35,8 @@ def test_clamped_rectangles_against_leissa() -> None:
 def test_simply_supported_rectangle_is_exact() -> None:
     # ω = π²(1/a² + 1/b²)·sqrt(D/ρh): the square's λ² on its side is 2π² = 19.739 (Leissa §4.1)
     assert simply_supported_lambda2_eq("rectangle", 1.0, 0.2) * math.pi == pytest.approx(2 * math.pi**2, rel=1e-12)
+    # sides 2 × 1: π²(1/4 + 1) on the equal-area radius² 2/π gives 2.5π
+    assert simply_supported_lambda2_eq("rectangle", 0.5, 0.2) == pytest.approx(2.5 * math.pi, rel=1e-12)
 
 
 def test_finite_differences_agree_with_leissa_and_with_our_ellipse() -> None:

@@ -152,7 +152,7 @@ def best_youden(levels: Sequence[float], tables: Sequence[Counts]) -> int | None
     j = np.array([t.youden for t in tables])
     if not np.isfinite(j).any():
         return None
-    return int(np.nanargmax(j))
+    return int(min(np.flatnonzero(j == np.nanmax(j)), key=lambda k: levels[k]))
 
 
 def reaching_sensitivity(levels: Sequence[float], tables: Sequence[Counts], target: float) -> int | None:

@@ -60,7 +60,8 @@ TABLE = np.linspace(0.0, 1.0, 4097)  # linear interpolation on this step errs by
 
 @lru_cache(maxsize=2)
 def _table(kind: str) -> np.ndarray:
-    return clamped_mode_shape(TABLE) if kind == "ellipse" else beam_mode(TABLE)
+    """The tabled shape: "ellipse" (the clamped circular mode on the radius) or "beam" (clamped-clamped)."""
+    return {"ellipse": clamped_mode_shape, "beam": beam_mode}[kind](TABLE)
 
 
 def _tabled(t: np.ndarray, kind: str) -> np.ndarray:
@@ -159,9 +160,10 @@ def fit_plate(contour: Polygon, xy: np.ndarray, ver: np.ndarray, usable: np.ndar
 
     best: tuple[float, np.ndarray, str] | None = None
     for shape in SHAPES:
-        start = np.array([cx, cy, angle, math.log(a), math.log(b), max(ver_max - c0, 1.0), c0])
+        gain = max(ver_max - c0, 1.0)  # the peak over the background around it
+        start = np.array([cx, cy, angle, math.log(a), math.log(b), gain, c0])
         lo = [cx - 2 * r_eq, cy - 2 * r_eq, -np.inf, math.log(0.3 * a), math.log(0.3 * b), 0.5, c0 - 6]
-        hi = [cx + 2 * r_eq, cy + 2 * r_eq, np.inf, math.log(3 * a), math.log(3 * b), ver_max + 10, c0 + 6]
+        hi = [cx + 2 * r_eq, cy + 2 * r_eq, np.inf, math.log(3 * a), math.log(3 * b), gain + 10, c0 + 6]
         try:
             res = scipy.optimize.least_squares(lambda p: _model(p, shape, pts) - v, start, bounds=(lo, hi),
                                                loss="soft_l1", f_scale=1.0, max_nfev=400)
