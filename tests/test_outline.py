@@ -214,3 +214,19 @@ def test_a_plate_over_a_background_below_the_reference_is_fitted() -> None:
     (contour,) = _contours(xy, ver, 0.0)
     fit = _fit_exact(contour, xy, ver, 0.0)
     assert fit.plate is not None and abs(fit.plate.a - 0.2) < 1e-3 and abs(fit.gain_db - 20.0) < 0.05
+
+
+def test_the_fit_needs_its_documented_minimum_of_points() -> None:
+    # MIN_FIT_POINTS (12) usable points around the contour are enough to try; one fewer gives no fit
+    from overlay.zones.outline import MIN_FIT_POINTS
+
+    xy, ver = _exact_map([(0.5, 0.5, 0.2, 0.2, 0.0)], 18.0, 0.0, size=(1.0, 1.0), spacing=0.1)
+    (contour,) = _contours(xy, ver, 6.0)
+    near = np.argsort(np.hypot(xy[:, 0] - 0.5, xy[:, 1] - 0.5))
+    for n, fitted in ((MIN_FIT_POINTS, True), (MIN_FIT_POINTS - 1, False)):
+        usable = np.zeros(len(ver), bool)
+        usable[near[:n]] = True
+        fit = _fit_exact(contour, xy, ver, 6.0, usable=usable)
+        assert fit.n_points == n and (fit.plate is not None) == fitted
+    with pytest.raises(ValueError, match="plate shape"):
+        Plate("circle", 0.0, 0.0, 0.0, 1.0, 1.0)

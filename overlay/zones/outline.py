@@ -80,6 +80,10 @@ class Plate:
     a: float
     b: float
 
+    def __post_init__(self) -> None:
+        if self.shape not in SHAPES:
+            raise ValueError(f"plate shape must be one of {SHAPES}, got {self.shape!r}")
+
     def local(self, xy: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         c, s = math.cos(self.angle), math.sin(self.angle)
         dx, dy = xy[:, 0] - self.cx, xy[:, 1] - self.cy
@@ -164,16 +168,12 @@ def fit_plate(contour: Polygon, xy: np.ndarray, ver: np.ndarray, usable: np.ndar
         start = np.array([cx, cy, angle, math.log(a), math.log(b), gain, c0])
         lo = [cx - 2 * r_eq, cy - 2 * r_eq, -np.inf, math.log(0.3 * a), math.log(0.3 * b), 0.5, c0 - 6]
         hi = [cx + 2 * r_eq, cy + 2 * r_eq, np.inf, math.log(3 * a), math.log(3 * b), gain + 10, c0 + 6]
-        try:
-            res = scipy.optimize.least_squares(lambda p: _model(p, shape, pts) - v, start, bounds=(lo, hi),
-                                               loss="soft_l1", f_scale=1.0, max_nfev=400)
-        except ValueError:
-            continue
+        res = scipy.optimize.least_squares(lambda p: _model(p, shape, pts) - v, start, bounds=(lo, hi),
+                                           loss="soft_l1", f_scale=1.0, max_nfev=400)
         cost = float(np.sum((_model(res.x, shape, pts) - v) ** 2))
         if best is None or cost < best[0]:
             best = (cost, res.x, shape)
-    if best is None:
-        return OutlineFit(None, float("nan"), float("nan"), int(take.sum()))
+    assert best is not None  # the start lies within the bounds by construction, so both fits run
     cost, p, shape = best
     pts, r = pts_all, _model(p, shape, pts_all) - v_all  # the misfit over every point of the window
     a_fit, b_fit, angle_fit = math.exp(p[3]), math.exp(p[4]), float(p[2])
