@@ -21,6 +21,8 @@ from overlay.zones.zone import (
     contour_fraction,
     defect_outline,
     depth_range,
+    order_key,
+    outline_confidence,
     peak_spread,
     point_stats,
     repair_footprint,
@@ -202,6 +204,55 @@ def test_zone_statistics_leave_dropouts_out() -> None:
     assert st_["peak_hz"] == pytest.approx(1150.0)  # median of 1000, 1100, 1200, 1300
     assert st_["snr_db"] == pytest.approx(20.0)
     assert st_["inside"].sum() == 4 and not st_["inside"][11]
-    # valid share: points within one spacing of the zone; only the dropout is not usable
-    near = shapely.contains_xy(zone.buffer(0.1), xy[:, 0], xy[:, 1])
-    assert st_["valid_share"] == pytest.approx((near.sum() - 1) / near.sum())
+    # valid share: points within one spacing of the zone — all 16 here (the farthest, (0.3, 0), lies 0.07 m
+    # from the zone's corner (0.25, 0.05)); only the dropout is not usable: 15/16
+    assert st_["valid_share"] == 15 / 16
+    # a zone with no point near it: nothing counted, no VER, a valid share of 0
+    far = point_stats(box(5.0, 5.0, 5.2, 5.2), xy, ver, peak, snr, usable, 0.1)
+    assert far["n_points"] == 0 and far["valid_share"] == 0.0
+    assert math.isnan(far["ver_max_db"]) and math.isnan(far["ver_mean_db"]) and math.isnan(far["peak_hz"])
+
+
+def test_confidence_factors_by_their_formulas() -> None:
+    # each factor as docs/zones.md writes it, worked by hand: support 1 − e^(−n/4), contrast
+    # 1 − e^(−(VERmax − level)/3 dB), coherence e^(−spread/0.15), quality valid share × (1 − e^(−SNR/6 dB))
+    f = confidence_factors(8, 16.0, 10.0, 0.15, 0.9, 12.0)
+    assert f == pytest.approx((1 - math.exp(-2), 1 - math.exp(-2), math.exp(-1), 0.9 * (1 - math.exp(-2))), rel=1e-12)
+    # at or below their floors: no points, a peak under the level, a negative spread or SNR count as none;
+    # unknown spread or SNR (VER given without spectra) leave their factor at 1; a share is at most 1
+    assert confidence_factors(0, 8.0, 10.0, -1.0, 1.5, -3.0) == (0.0, 0.0, 1.0, 0.0)
+    assert confidence_factors(4, 10.0, 10.0, float("nan"), 1.0, float("nan"))[2:] == (1.0, 1.0)
+
+
+def test_outline_confidence_by_its_formula() -> None:
+    # 0.5 + 0.5·e^(−max(misfit − 1, 0)): 1 within the scatter, 0.68 at 2, 0.52 at 5, 0.5 without an outline
+    assert outline_confidence(0.3) == 1.0 and outline_confidence(1.0) == 1.0
+    assert outline_confidence(2.0) == pytest.approx(0.5 + 0.5 * math.exp(-1.0), rel=1e-12)
+    assert outline_confidence(5.0) == pytest.approx(0.5 + 0.5 * math.exp(-4.0), rel=1e-12)
+    assert outline_confidence(float("nan")) == 0.5
+
+
+def test_no_depth_without_a_peak_and_both_areas() -> None:
+    c = Concrete()
+    assert all(math.isfinite(v) for v in depth_range(1500.0, 0.05, 0.1, c))
+    for args in ((0.0, 0.05, 0.1), (1.0, 0.05, 0.1), (1500.0, 0.0, 0.1), (1500.0, 0.05, 0.0), (float("nan"), 0.05, 0.1)):
+        lo, hi = depth_range(*args, c)
+        assert (math.isnan(lo) and math.isnan(hi)) == (args[0] <= 0 or args[1] <= 0 or args[2] <= 0
+                                                       or args[0] != args[0])
+
+
+def test_zones_are_numbered_row_by_row_at_a_thousandth() -> None:
+    # the key rounds the centroid to 3 decimals (1 mm in a metre drawing): centroids less than that apart in
+    # y are one row, ordered by x; further apart, by y
+    def sq(x: float, y: float) -> Polygon:
+        return box(x - 0.01, y - 0.01, x + 0.01, y + 0.01)
+
+    same_row = [sq(2.0, 1.0001), sq(1.0, 1.0004)]
+    assert sorted(same_row, key=order_key)[0].centroid.x == pytest.approx(1.0)
+    rows = [sq(1.0, 1.6), sq(2.0, 1.4)]
+    assert sorted(rows, key=order_key)[0].centroid.y == pytest.approx(1.4)
+    same_column = [sq(1.0004, 2.0), sq(1.0001, 1.0)]  # x rounding does not reorder rows
+    assert sorted(same_column, key=order_key)[0].centroid.y == pytest.approx(1.0)
+    ties = [sq(1.0004, 1.0), sq(1.0001, 1.0)]  # equal keys below a thousandth: the order found is kept
+    assert sorted(ties, key=order_key)[0].centroid.x == pytest.approx(1.0004)
+    assert order_key(sq(1.23456, 7.65432)) == (7.654, 1.235)
