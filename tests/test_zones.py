@@ -23,6 +23,7 @@ from overlay.zones.zone import (
     depth_range,
     order_key,
     outline_confidence,
+    parent_finder,
     peak_spread,
     point_stats,
     repair_footprint,
@@ -118,6 +119,10 @@ def test_peak_spread() -> None:
     # quartiles 990, 1000, 1010 → (1010 − 990)/1000 = 0.02 (hand-worked)
     assert peak_spread(np.array([980.0, 990.0, 1000.0, 1010.0, 1020.0])) == pytest.approx(0.02)
     assert math.isnan(peak_spread(np.array([1000.0])))
+    # two peaks are enough: quartiles by linear interpolation (numpy's default) 1025, 1050, 1075 Hz
+    assert peak_spread(np.array([1000.0, 1100.0])) == pytest.approx(50.0 / 1050.0, rel=1e-12)
+    assert peak_spread(np.array([0.4, 0.5, 0.6])) == pytest.approx(0.2, rel=1e-12)  # a median under 1 Hz still counts
+    assert math.isnan(peak_spread(np.array([0.0, 0.0, 0.0])))  # no median to divide by
 
 
 def test_footprint_hand_worked() -> None:
@@ -256,3 +261,38 @@ def test_zones_are_numbered_row_by_row_at_a_thousandth() -> None:
     ties = [sq(1.0004, 1.0), sq(1.0001, 1.0)]  # equal keys below a thousandth: the order found is kept
     assert sorted(ties, key=order_key)[0].centroid.x == pytest.approx(1.0004)
     assert order_key(sq(1.23456, 7.65432)) == (7.654, 1.235)
+
+
+def test_contour_fraction_against_the_bessel_mode_and_at_its_edges() -> None:
+    # where the contour at the level lies, as a fraction of the radius: the ρ at which the clamped mode
+    # (J0(λρ) − J0(λ)/I0(λ)·I0(λρ), normalised; Leissa Table 2.1, λ² = 10.2158) gives the energy the level
+    # needs — solved here with scipy's brentq on the Bessel functions
+    from scipy import optimize, special
+
+    lam = math.sqrt(10.2158)
+    w0 = 1.0 - special.j0(lam) / special.i0(lam)
+
+    def shape(r: float) -> float:
+        return (special.j0(lam * r) - special.j0(lam) / special.i0(lam) * special.i0(lam * r)) / w0
+
+    for peak, level in ((18.0, 6.0), (10.0, 2.0), (2.0, 1.0), (15.0, 14.0)):
+        phi = math.sqrt((10 ** (level / 10) - 1) / (10 ** (peak / 10) - 1))
+        rho = optimize.brentq(lambda r: shape(r) - phi, 0.0, 1.0, xtol=1e-12)
+        assert contour_fraction(peak, level) == pytest.approx(rho, abs=2e-4)
+    # no gain over the reference, or a level at or below 0 dB: the contour is the whole plate
+    assert contour_fraction(-1.0, 6.0) == 1.0 and contour_fraction(0.0, 6.0) == 1.0
+    assert contour_fraction(10.0, 0.0) == 1.0 and contour_fraction(10.0, -3.0) == 1.0
+
+
+def test_the_parent_zone_is_the_one_that_covers_the_point() -> None:
+    # an L-shaped parent whose bounding box holds the child's point but whose area does not; a second
+    # parent that does; and a geometry outside both
+    from types import SimpleNamespace
+
+    ell = SimpleNamespace(contour=shapely.union(box(0, 0, 3, 1), box(0, 0, 1, 3)))
+    square = SimpleNamespace(contour=box(1.5, 1.5, 2.5, 2.5))
+    find = parent_finder([ell, square])
+    assert find(box(1.9, 1.9, 2.1, 2.1)) is square  # inside the L's bounding box, not inside the L
+    assert find(box(0.2, 2.0, 0.4, 2.2)) is ell
+    assert find(box(5, 5, 6, 6)) is None
+    assert parent_finder([])(box(0, 0, 1, 1)) is None

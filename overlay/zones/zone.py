@@ -21,7 +21,7 @@ Pure functions; docs/zones.md explains every formula with an example.
 from __future__ import annotations
 
 import math
-from dataclasses import asdict, dataclass, field
+from dataclasses import dataclass, field
 
 import numpy as np
 import shapely
@@ -110,9 +110,7 @@ class Zone:
 
     def record(self) -> dict[str, object]:
         """The attributes, in export order, without geometries and spectrum."""
-        d = {k: v for k, v in asdict(self).items() if k not in ("contour", "defect", "footprint", "spectrum")}
-        d["class"] = d.pop("class_name")
-        return {k: d[k] for k in ZONE_FIELDS}
+        return {k: getattr(self, "class_name" if k == "class" else k) for k in ZONE_FIELDS}
 
 
 def confidence_factors(
@@ -206,8 +204,9 @@ def outline_confidence(misfit: float) -> float:
     return 0.5 + 0.5 * math.exp(-max(misfit - 1.0, 0.0)) if misfit == misfit else 0.5
 
 
-def repair_footprint(outline: Polygon, margin: float, mode: str = "aligned") -> tuple[Polygon, float, float]:
-    """Rectangle around the outline grown by ``margin``: axis-aligned, or the minimum rotated one.
+def repair_footprint(outline: Polygon, margin: float, mode: str) -> tuple[Polygon, float, float]:
+    """Rectangle around the outline grown by ``margin``: axis-aligned (``mode`` "aligned"), or the minimum
+    rotated one ("rotated").
 
     Returns (rectangle, length, width) with length ≥ width, in the outline's units.
     """
