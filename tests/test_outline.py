@@ -228,5 +228,8 @@ def test_the_fit_needs_its_documented_minimum_of_points() -> None:
         usable[near[:n]] = True
         fit = _fit_exact(contour, xy, ver, 6.0, usable=usable)
         assert fit.n_points == n and (fit.plate is not None) == fitted
+    # a zone without a usable point of its own has no peak VER (NaN): no fit, however many points around
+    nan_peak = fit_plate(contour, xy, ver, np.ones(len(ver), bool), 1.3, float("nan"))
+    assert nan_peak.plate is None and nan_peak.n_points > MIN_FIT_POINTS
     with pytest.raises(ValueError, match="plate shape"):
         Plate("circle", 0.0, 0.0, 0.0, 1.0, 1.0)

@@ -227,6 +227,7 @@ def test_confidence_factors_by_their_formulas() -> None:
     # unknown spread or SNR (VER given without spectra) leave their factor at 1; a share is at most 1
     assert confidence_factors(0, 8.0, 10.0, -1.0, 1.5, -3.0) == (0.0, 0.0, 1.0, 0.0)
     assert confidence_factors(4, 10.0, 10.0, float("nan"), 1.0, float("nan"))[2:] == (1.0, 1.0)
+    assert confidence_factors(4, 10.0, 10.0, 0.0, 1.5, float("nan"))[3] == 1.0
 
 
 def test_outline_confidence_by_its_formula() -> None:

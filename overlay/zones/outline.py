@@ -153,7 +153,7 @@ def fit_plate(contour: Polygon, xy: np.ndarray, ver: np.ndarray, usable: np.ndar
     take = usable & np.isfinite(ver) & shapely.contains_xy(window, xy[:, 0], xy[:, 1])
     if others is not None and not others.is_empty:
         take &= ~shapely.contains_xy(others, xy[:, 0], xy[:, 1])
-    if take.sum() < MIN_FIT_POINTS:
+    if take.sum() < MIN_FIT_POINTS or not math.isfinite(ver_max):  # no VER in the zone itself: nothing to scale
         return OutlineFit(None, float("nan"), float("nan"), int(take.sum()))
     pts_all, v_all = xy[take], ver[take]
     k = -(-len(v_all) // MAX_FIT_POINTS)  # every k-th point: a big defect on a fine grid fits as fast as a small one
