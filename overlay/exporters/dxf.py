@@ -450,7 +450,7 @@ def _legend_and_note(msp: Any, result: "RunResult", style: "DxfStyle", text: Let
     width = max(box[2] - box[0], 120 * text.per_mm)
     msp.add_mtext("\\P".join(clean_text(line) for line in lines),
                   dxfattribs={"layer": note, "char_height": h, "style": style.text_style,
-                              "width": width}).set_location((x, top))
+                              "width": width}).set_location((x + 0.5 * h, top))  # LibreCAD draws MTEXT's first glyph a little left of its insertion
 
 
 def _open_at_extents(doc: Drawing, extent: Any) -> None:
