@@ -277,3 +277,43 @@ def test_a_record_whose_power_overflows_float32_is_invalid_not_infinite() -> Non
     assert np.isnan(sp.energy[1]) and np.isfinite(sp.energy[[0, 2]]).all()
     x[1] = rng.normal(0, 1e12, 512).astype(np.float32)  # large but representable: a valid point
     assert records_spectra(x, _gate(512), (400.0, 8000.0)).finite.all()
+
+
+def test_given_spectra_on_an_uneven_axis_with_bad_rows_chunks_and_kept_rows() -> None:
+    # a PSD growing linearly with frequency on an uneven axis: the band energy is the trapezoid integral
+    # (numpy.trapezoid as the reference; exact for a linear density), in (m/s)² after a mm/s → m/s scale;
+    # rows with a NaN or a negative density are invalid and give NaN; chunks of 3 give what one chunk gives;
+    # the kept band rows are the scaled densities (NaN where invalid)
+    trapezoid = getattr(np, "trapezoid", None) or np.trapz
+    f = np.array([0.0, 150.0, 400.0, 430.0, 700.0, 1250.0, 3000.0, 3100.0, 5200.0, 8000.0, 9000.0])
+    band = (400.0, 8000.0)
+    inside = (f >= 400.0) & (f <= 8000.0)
+    rows = np.array([1e-3 * f, 2e-3 * f + 1.0, 1e-3 * f, 1e-3 * f, 5e-4 * f, 3e-3 * f + 2.0, 1e-3 * f])
+    rows[2, 4] = np.nan
+    rows[3, 6] = -1.0
+    whole = given_spectra(rows, f, band, velocity_scale=1e-3, keep_psd=True)
+    parts = given_spectra(rows, f, band, velocity_scale=1e-3, chunk=3, keep_psd=True)
+    for sp in (whole, parts):
+        good = [0, 1, 4, 5, 6]
+        for k in good:
+            expected = trapezoid(rows[k, inside] * 1e-6, f[inside])
+            assert sp.energy[k] == pytest.approx(expected, rel=1e-12)
+            assert sp.peak_hz[k] == pytest.approx(8000.0)  # a rising density peaks at the band's top bin
+        assert np.isnan(sp.energy[[2, 3]]).all() and np.isnan(sp.peak_hz[[2, 3]]).all()
+        assert np.isnan(sp.snr_db[[2, 3]]).all() and np.isfinite(sp.snr_db[good]).all()
+        assert list(sp.finite) == [True, True, False, False, True, True, True]
+        np.testing.assert_allclose(sp.band_psd[good], (rows[good][:, inside] * 1e-6).astype(np.float32), rtol=1e-6)
+        assert np.isnan(sp.band_psd[[2, 3]]).all()
+    assert given_spectra(rows, f, band).band_psd is None  # kept only when asked
+
+
+def test_given_spectra_snr_and_the_smallest_band() -> None:
+    # SNR: a flat density of 1 with one bin at 100: 10·log10(100 / 1) = 20 dB (the floor, the median of every
+    # second bin, stays 1); the smallest band allowed, three bins, integrates as two trapezoids: 900
+    f = np.arange(0.0, 1000.0, 10.0)
+    p = np.ones((1, len(f)))
+    p[0, 50] = 100.0
+    assert given_spectra(p, f, (100.0, 900.0)).snr_db[0] == pytest.approx(20.0, abs=1e-9)
+    three = given_spectra(np.array([[1.0, 2.0, 4.0, 8.0, 16.0]]), np.array([0.0, 100.0, 200.0, 300.0, 400.0]),
+                          (100.0, 300.0))
+    assert three.energy[0] == pytest.approx(100.0 * (2.0 + 4.0) / 2 + 100.0 * (4.0 + 8.0) / 2, rel=1e-12)

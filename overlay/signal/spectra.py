@@ -328,13 +328,10 @@ def given_spectra(
     Bin widths are the trapezoid weights of the band's bins, so uneven
     spacing integrates correctly.
     """
-    sl = band_slice(freqs, band_hz)
+    sl = band_slice(freqs, band_hz)  # at least MIN_BAND_BINS bins, or a SignalError
     bfreqs = freqs[sl]
-    if len(bfreqs) < 2:
-        df = np.ones(len(bfreqs))
-    else:
-        edges = np.concatenate([[bfreqs[0]], 0.5 * (bfreqs[1:] + bfreqs[:-1]), [bfreqs[-1]]])
-        df = np.diff(edges)
+    edges = np.concatenate([[bfreqs[0]], 0.5 * (bfreqs[1:] + bfreqs[:-1]), [bfreqs[-1]]])
+    df = np.diff(edges)
     n_points = spectra.shape[0]
     out = PointSpectra(
         np.full(n_points, np.nan), np.full(n_points, np.nan), np.full(n_points, np.nan), np.ones(n_points, bool), bfreqs
