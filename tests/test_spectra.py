@@ -108,6 +108,7 @@ def test_chunked_equals_unchunked() -> None:
     parts = records_spectra(x, g, (400.0, 8000.0), chunk=5)
     np.testing.assert_allclose(parts.energy, whole.energy, rtol=1e-6)
     np.testing.assert_array_equal(parts.peak_hz, whole.peak_hz)
+    assert whole.band_psd is None  # the band rows are kept only when asked (they cost memory)
 
 
 def test_given_spectra_integrates_band_and_finds_peak() -> None:
@@ -317,3 +318,19 @@ def test_given_spectra_snr_and_the_smallest_band() -> None:
     three = given_spectra(np.array([[1.0, 2.0, 4.0, 8.0, 16.0]]), np.array([0.0, 100.0, 200.0, 300.0, 400.0]),
                           (100.0, 300.0))
     assert three.energy[0] == pytest.approx(100.0 * (2.0 + 4.0) / 2 + 100.0 * (4.0 + 8.0) / 2, rel=1e-12)
+
+
+@pytest.mark.parametrize("n", [1, 2, 3, 8, 4096])
+def test_hann_is_scipy_periodic_hann(n: int) -> None:
+    # the periodic (DFT-even) Hann window, scipy.signal.windows.hann(n, sym=False) as the reference; n = 1 is 1
+    from scipy.signal import windows
+
+    np.testing.assert_allclose(hann(n), windows.hann(n, sym=False), rtol=0, atol=1e-15)
+
+
+def test_a_frequency_axis_of_one_bin_is_refused_as_a_band_error() -> None:
+    from overlay.errors import SignalError
+    from overlay.signal.spectra import band_slice
+
+    with pytest.raises(SignalError, match="holds 1 frequency bin"):
+        band_slice(np.array([500.0]), (400.0, 800.0))
