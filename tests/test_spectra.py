@@ -315,6 +315,16 @@ def test_given_spectra_snr_and_the_smallest_band() -> None:
     p = np.ones((1, len(f)))
     p[0, 50] = 100.0
     assert given_spectra(p, f, (100.0, 900.0)).snr_db[0] == pytest.approx(20.0, abs=1e-9)
+    # the floor is the median of every second band bin (docs/energy-ratio.md): densities alternating 1 and 4
+    # from the band's first bin give a floor of 1 (every third bin would mix in the 4s)
+    alt = np.where(np.arange(len(f)) % 2 == 0, 1.0, 4.0)[None, :]
+    alt[0, 50] = 100.0
+    assert given_spectra(alt, f, (100.0, 900.0)).snr_db[0] == pytest.approx(20.0, abs=1e-9)
+    # a density of exactly zero somewhere is a valid row (only NaN, inf and negative values are not)
+    zero = np.ones((1, len(f)))
+    zero[0, 30] = 0.0
+    sp = given_spectra(zero, f, (100.0, 900.0))
+    assert sp.finite.dtype == bool and bool(sp.finite[0]) and np.isfinite(sp.energy[0])
     three = given_spectra(np.array([[1.0, 2.0, 4.0, 8.0, 16.0]]), np.array([0.0, 100.0, 200.0, 300.0, 400.0]),
                           (100.0, 300.0))
     assert three.energy[0] == pytest.approx(100.0 * (2.0 + 4.0) / 2 + 100.0 * (4.0 + 8.0) / 2, rel=1e-12)

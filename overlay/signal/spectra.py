@@ -44,7 +44,8 @@ def hann(n: int) -> np.ndarray:
     return 0.5 - 0.5 * np.cos(2.0 * np.pi * np.arange(n) / n) if n > 1 else np.ones(n)
 
 
-def _density_scale(w: np.ndarray, fs: float, n: int) -> float:
+def _density_scale(w: np.ndarray, fs: float) -> float:
+    """One-sided density scale of a windowed periodogram: 1 / (fs · Σw²) (before the doubling)."""
     return 1.0 / (fs * float(np.sum(w.astype(np.float64) ** 2)))
 
 
@@ -147,7 +148,7 @@ def _plan(gate: Gate, band_hz: tuple[float, float], velocity_scale: float, fft_w
     k = np.arange(len(freqs))[sl]
     double = np.where((k == 0) | ((n % 2 == 0) & (k == n // 2)), 1.0, 2.0)
     # × ¼: _hann_band returns twice the windowed bins
-    factor = (0.25 * double * _density_scale(w, fs, n) * velocity_scale**2).astype(np.float32)
+    factor = (0.25 * double * _density_scale(w, fs) * velocity_scale**2).astype(np.float32)
     wb = scipy.fft.rfft(w)[sl]
     leak = np.nonzero(np.abs(wb) > 1e-9 * np.sum(w))[0]
     return _Plan(gate.start, gate.stop, sl, freqs[sl], leak,
