@@ -448,9 +448,11 @@ def _legend_and_note(msp: Any, result: "RunResult", style: "DxfStyle", text: Let
     ]
     top = y - len(site.zones.classes) * 2 * h - h
     width = max(box[2] - box[0], 120 * text.per_mm)
+    # half a text height in from the swatches: LibreCAD draws MTEXT's first glyph a little left of its
+    # insertion point, and its fitted print cut it at the drawing's edge
     msp.add_mtext("\\P".join(clean_text(line) for line in lines),
                   dxfattribs={"layer": note, "char_height": h, "style": style.text_style,
-                              "width": width}).set_location((x + 0.5 * h, top))  # LibreCAD draws MTEXT's first glyph a little left of its insertion
+                              "width": width}).set_location((x + 0.5 * h, top))
 
 
 def _open_at_extents(doc: Drawing, extent: Any) -> None:

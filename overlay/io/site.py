@@ -19,8 +19,6 @@ from overlay.io.bundle import target_names
 from overlay.io.tomlio import Fields, load_toml
 from overlay.quantities import area_field
 from overlay.settings import (
-    DEFAULT_CLASSES,
-    DEFAULT_FORMATS,
     LABEL_HEIGHT_MM,
     NOTE_HEIGHT_MM,
     REPAIR_MARGIN_M,
@@ -114,8 +112,8 @@ def _registration(doc: Fields) -> RegistrationSpec:
     reg = _table(doc, "registration")
     spec = RegistrationSpec(
         tolerance_m=reg.number("tolerance_m", TOLERANCE_M, positive=True) or TOLERANCE_M,
-        accept_misfit=_bool(reg, "accept_misfit", False),
-        model=reg.choice("model", MODEL_CHOICES, default="auto"),
+        accept_misfit=_bool(reg, "accept_misfit", RegistrationSpec.accept_misfit),
+        model=reg.choice("model", MODEL_CHOICES, default=RegistrationSpec.model),
     )
     reg.reject_unknown({"tolerance": "tolerance_m, in metres on the structure (it was in drawing units)"})
     return spec
@@ -123,18 +121,18 @@ def _registration(doc: Fields) -> RegistrationSpec:
 
 def _energy(doc: Fields) -> EnergySpec:
     en = _table(doc, "energy")
-    reference = en.choice("reference", REFERENCES, default="auto")
+    reference = en.choice("reference", REFERENCES, default=EnergySpec.reference)
     percentile = en.number("percentile", DEFAULT_PERCENTILE, minimum=0.0) or 0.0
     if percentile > 100:
         raise en.fail("percentile", f"must lie in 0..100, got {percentile:g}")
-    spec = EnergySpec(reference, percentile, _bool(en, "incidence_correction", True))
+    spec = EnergySpec(reference, percentile, _bool(en, "incidence_correction", EnergySpec.incidence_correction))
     en.reject_unknown()
     return spec
 
 
 def _quality(doc: Fields) -> QualitySpec:
     qt = _table(doc, "quality")
-    min_level = qt.number("min_signal_level", 0.0, minimum=0.0) or 0.0
+    min_level = qt.number("min_signal_level", QualitySpec.min_signal_level, minimum=0.0) or 0.0
     if min_level > 1:
         raise qt.fail("min_signal_level", f"must lie in 0..1, got {min_level:g}")
     spec = QualitySpec(min_level, qt.number("min_snr_db"))
@@ -144,7 +142,7 @@ def _quality(doc: Fields) -> QualitySpec:
 
 def _zones(doc: Fields, path: Path) -> ZoneSpec:
     zt = _table(doc, "zones")
-    min_area = zt.number("min_area_m2", 0.01, minimum=0.0) or 0.0
+    min_area = zt.number("min_area_m2", ZoneSpec.min_area_m2, minimum=0.0) or 0.0
     classes = _classes(zt)
     calibration = None
     if zt.string("calibration") is not None:
@@ -163,8 +161,8 @@ def _repair(doc: Fields) -> RepairSpec:
     margin = rp.number("margin_m", REPAIR_MARGIN_M, minimum=0.0, maximum=MAX_MARGIN_M)
     spec = RepairSpec(
         margin_m=margin if margin is not None else REPAIR_MARGIN_M,
-        footprint=rp.choice("footprint", ("aligned", "rotated"), default="aligned"),
-        basis=rp.choice("basis", ("outline", "contour"), default="outline"),
+        footprint=rp.choice("footprint", ("aligned", "rotated"), default=RepairSpec.footprint),
+        basis=rp.choice("basis", ("outline", "contour"), default=RepairSpec.basis),
     )
     rp.reject_unknown()
     return spec
@@ -172,10 +170,10 @@ def _repair(doc: Fields) -> RepairSpec:
 
 def _outputs(doc: Fields) -> OutputSpec:
     out = _table(doc, "outputs")
-    basename = out.string("basename", "overlay") or "overlay"
+    basename = out.string("basename", OutputSpec.basename) or OutputSpec.basename
     if any(c in basename for c in '/\\:*?"<>|') or basename.startswith("."):
         raise out.fail("basename", f"must be a plain file name stem, got {basename!r}")
-    formats = out.raw("formats", list(DEFAULT_FORMATS))
+    formats = out.raw("formats", list(OutputSpec.formats))
     if not isinstance(formats, list) or not all(isinstance(f, str) for f in formats) or not formats:
         raise out.fail("formats", f"must be a non-empty list of exporter names, got {formats!r}")
     out.reject_unknown()
@@ -212,7 +210,7 @@ def _bool(t: Fields, key: str, default: bool) -> bool:
 def _classes(zt: Fields) -> tuple[ZoneClass, ...]:
     raw = zt.raw("classes")
     if raw is None:
-        return tuple(ZoneClass(n, t) for n, t in DEFAULT_CLASSES)
+        return ZoneSpec.classes
     if not isinstance(raw, list) or not raw:
         raise zt.fail("classes", "must be a non-empty array of tables [[zones.classes]]")
     out: list[ZoneClass] = []

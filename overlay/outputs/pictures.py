@@ -9,10 +9,7 @@ from __future__ import annotations
 
 from typing import TYPE_CHECKING
 
-import matplotlib
-
-matplotlib.use("Agg")  # no display: pictures are files
-import matplotlib.pyplot as plt  # noqa: E402
+import matplotlib.pyplot as plt
 import numpy as np
 import shapely
 from matplotlib.image import AxesImage
