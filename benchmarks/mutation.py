@@ -47,11 +47,11 @@ CORE: dict[str, list[str]] = {
     "zones/zone": ["tests/test_zones.py", "tests/test_demo.py"],
     "zones/outline": ["tests/test_outline.py", "tests/test_plate_shapes.py", "tests/test_zones.py"],
     "zones/plate": ["tests/test_plate.py", "tests/test_plate_shapes.py", "tests/test_zones.py"],
-    "zones/mosaic": ["tests/test_campaign.py", "tests/test_demo.py"],
+    "zones/mosaic": ["tests/test_mosaic.py"],
     "geometry/fits": ["tests/test_fits.py", "tests/test_frames.py"],
     "geometry/transforms": ["tests/test_fits.py", "tests/test_frames.py"],
-    "quantities": ["tests/test_exporters.py", "tests/test_drawing.py", "tests/test_gis_clients.py"],
-    "assets/merge": ["tests/test_merge.py"],
+    "quantities": ["tests/test_quantities.py"],
+    "assets/merge": ["tests/test_merge_rows.py"],
     "calibration/agreement": ["tests/test_calibration.py"],
 }
 NOT_RESULTS = [r"^\s*raise\b", r"warnings\.warn\(", r"^\s*(msg|hint|why|problem) = "]  # messages, not numbers

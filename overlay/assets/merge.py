@@ -347,11 +347,7 @@ def findings_style(result: "RunResult") -> styles.LayerStyle:
 
 
 def as_multi(g: Any) -> MultiPolygon:
-    """Findings are MultiPolygons (a piece cut by an asset can fall apart)."""
-    if g.geom_type == "Polygon":
-        return MultiPolygon([g])
-    if g.geom_type == "MultiPolygon":
-        return g
+    """Findings are MultiPolygons (a piece cut by an asset can fall apart, or come with a shared edge as a line)."""
     return MultiPolygon([p for p in shapely.get_parts(g) if p.geom_type == "Polygon"])
 
 
@@ -424,8 +420,14 @@ def backup_name(target: Path, now: dt.datetime) -> Path:
 def backups_of(target: Path) -> list[Path]:
     """This file's backups, oldest first (the legacy name of early versions counts as the oldest)."""
     legacy = target.with_name(f"{target.stem}.before-overlay{target.suffix}")
-    stamped = sorted(target.parent.glob(f"{glob_escape(target.stem)}.before-overlay-*{target.suffix}"))
+    stamped = sorted(target.parent.glob(f"{glob_escape(target.stem)}.before-overlay-*{target.suffix}"), key=_made)
     return ([legacy] if legacy.exists() else []) + stamped
+
+
+def _made(backup: Path) -> tuple[str, int]:
+    """(UTC stamp, counter): a second backup within one second ("…Z-2") sorts after the first ("…Z")."""
+    stamp, _, counter = backup.stem.rpartition(".before-overlay-")[2].partition("-")
+    return stamp, int(counter) if counter.isdigit() else 1
 
 
 def make_backup(target: Path, keep: int, now: dt.datetime | None = None) -> Path:
@@ -466,6 +468,20 @@ def lock_holder(path: Path) -> str | None:
         lines = Path("/proc/locks").read_text().splitlines()
     except OSError:
         return None
+    pid = locking_pid(lines, inodes, os.getpid())
+    if pid is None:
+        return None
+    try:
+        comm = Path(f"/proc/{pid}/comm").read_text().strip()
+    except OSError:
+        comm = "?"
+    return f"process {pid} ({comm})"
+
+
+def locking_pid(lines: list[str], inodes: set[tuple[int, int]], me: int) -> int | None:
+    """The first other process with a lock on one of ``inodes`` in /proc/locks lines (proc(5): ``1: POSIX
+    ADVISORY WRITE <pid> <major>:<minor>:<inode> <start> <end>``, device numbers in hex).  Open file
+    description locks (OFDLCK) belong to no process: their pid is -1."""
     for line in lines:
         parts = line.split()
         if len(parts) < 6 or parts[1] not in ("POSIX", "OFDLCK"):
@@ -476,10 +492,6 @@ def lock_holder(path: Path) -> str | None:
             dev = os.makedev(int(major, 16), int(minor, 16))
         except ValueError:
             continue
-        if (dev, int(ino)) in inodes and pid not in (os.getpid(), -1):
-            try:
-                comm = Path(f"/proc/{pid}/comm").read_text().strip()
-            except OSError:
-                comm = "?"
-            return f"process {pid} ({comm})"
+        if (dev, int(ino)) in inodes and pid not in (me, -1):
+            return pid
     return None

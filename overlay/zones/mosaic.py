@@ -22,6 +22,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 import shapely
+from shapely.geometry import Polygon
 
 from overlay.zones.zone import Zone, order_key, parent_finder, repair_footprint
 
@@ -51,6 +52,11 @@ def _groups(zones: list[Zone]) -> list[list[Zone]]:
     return [sorted(g, key=lambda z: z.zone_id) for g in groups.values()]
 
 
+def _largest(geom: Polygon) -> Polygon:
+    """The largest piece: overlapping contours unite into one, but the parts' outlines need not meet."""
+    return max(shapely.get_parts(geom), key=lambda g: g.area)
+
+
 def _unite(parts: list[Zone], site: "Site", unit_m: float) -> Zone:
     if len(parts) == 1:
         z = copy.copy(parts[0])
@@ -64,12 +70,8 @@ def _unite(parts: list[Zone], site: "Site", unit_m: float) -> Zone:
         ok = np.isfinite(v)
         return float(np.average(v[ok], weights=w[ok])) if ok.any() else float("nan")
 
-    contour = shapely.union_all([p.contour for p in parts])
-    if contour.geom_type != "Polygon":  # overlapping parts give one polygon; keep the largest piece otherwise
-        contour = max(shapely.get_parts(contour), key=lambda g: g.area)
-    defect = shapely.union_all([p.defect for p in parts])
-    if defect.geom_type != "Polygon":
-        defect = max(shapely.get_parts(defect), key=lambda g: g.area)
+    contour = _largest(shapely.union_all([p.contour for p in parts]))
+    defect = _largest(shapely.union_all([p.defect for p in parts]))
     first = parts[0]
     z = copy.copy(first)
     z.zone_id = f"{first.zone_id}+{len(parts) - 1}"
@@ -106,25 +108,21 @@ def _unite(parts: list[Zone], site: "Site", unit_m: float) -> Zone:
 
 def mosaic_zones(zones: list[Zone], site: "Site", unit_m: float) -> list[Zone]:
     """Unite overlapping zones of each class across scans; nested classes keep their lowest-class defect."""
-    out: list[Zone] = []
-    find = parent_finder([])
-    for k, zc in enumerate(site.zones.classes):
-        mine = [z for z in zones if z.class_name == zc.name]
-        united = sorted((_unite(g, site, unit_m) for g in _groups(mine)) if mine else [],
-                        key=lambda z: (z.scan_id, order_key(z.contour)))
-        for z in united:
-            if k == 0:
-                z.defect_id = z.zone_id
-            else:
-                parent = find(z.contour)
-                if parent is not None:
-                    z.defect_id, z.defect, z.outline_area_m2 = parent.defect_id, parent.defect, parent.outline_area_m2
-                    z.depth_low_m, z.depth_high_m = parent.depth_low_m, parent.depth_high_m
-                if parent is not None and site.repair.basis == "outline":
-                    z.footprint, z.footprint_area_m2 = parent.footprint, parent.footprint_area_m2
-                    z.footprint_length_m, z.footprint_width_m = parent.footprint_length_m, parent.footprint_width_m
-                    z.volume_low_m3, z.volume_high_m3 = parent.volume_low_m3, parent.volume_high_m3
-        if k == 0:
-            find = parent_finder(united)
-        out.extend(united)
-    return out
+    by_class = [sorted((_unite(g, site, unit_m) for g in _groups([z for z in zones if z.class_name == c.name])),
+                       key=lambda z: (z.scan_id, order_key(z.contour))) for c in site.zones.classes]
+    if not by_class:
+        return []
+    for z in by_class[0]:
+        z.defect_id = z.zone_id
+    find = parent_finder(by_class[0])
+    for z in (z for higher in by_class[1:] for z in higher):
+        parent = find(z.contour)
+        if parent is None:
+            continue
+        z.defect_id, z.defect, z.outline_area_m2 = parent.defect_id, parent.defect, parent.outline_area_m2
+        z.depth_low_m, z.depth_high_m = parent.depth_low_m, parent.depth_high_m
+        if site.repair.basis == "outline":
+            z.footprint, z.footprint_area_m2 = parent.footprint, parent.footprint_area_m2
+            z.footprint_length_m, z.footprint_width_m = parent.footprint_length_m, parent.footprint_width_m
+            z.volume_low_m3, z.volume_high_m3 = parent.volume_low_m3, parent.volume_high_m3
+    return [z for united in by_class for z in united]
