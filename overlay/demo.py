@@ -31,6 +31,7 @@ import numpy as np
 from overlay.errors import SiteFileError
 from overlay.io.site import read_site
 from overlay.io.tomlio import load_toml
+from overlay.outputs import dxf_save
 from overlay.signal.gate import speed_of_sound
 from overlay.zones.plate import (
     aci318_modulus_pa,
@@ -488,7 +489,7 @@ def write_asbuilt_dxf(path: Path, st: dict) -> None:
         msp.add_text(f"G{k}", height=0.25, dxfattribs={"layer": "LABELS"}).set_placement((-1.0, y))
     msp.add_text(f"{st['name']} ({st['id']}) - deck soffit plan, looking up", height=0.4,
                  dxfattribs={"layer": "LABELS"}).set_placement((0, -1.5))
-    doc.saveas(path)
+    dxf_save.save(doc, path)
 
 
 def deck_panels(st: dict) -> list[tuple[str, int, int, list[tuple[float, float]]]]:

@@ -34,7 +34,7 @@ from shapely.geometry import LineString, Polygon
 
 from overlay.cautions import CAUTIONS
 from overlay.errors import OutputConflictError, SiteFileError
-from overlay.outputs import palette, sheet
+from overlay.outputs import dxf_save, palette, sheet
 from overlay.outputs.labels import Item, leader_end, place_labels
 from overlay.quantities import defects
 from overlay.units import LENGTH_TO_M
@@ -212,7 +212,7 @@ class DxfExporter:
         extent = bbox.extents(msp)
         _open_at_extents(doc, extent)
         sheet.add_sheets(doc, result, plan, fixed["sheet"], style, (APPID, OURS), move)
-        doc.saveas(path)
+        dxf_save.save(doc, path)
 
 
 def layer_plan(result: "RunResult", style: "DxfStyle") -> dict[str, LayerLook]:

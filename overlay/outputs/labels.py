@@ -80,10 +80,11 @@ class _Layer:
     def blocked(self, boxes: np.ndarray) -> np.ndarray:
         """For each box (k, 4) whether anything here meets it."""
         out = _overlaps(boxes, self.rects).any(axis=1)
-        near = _overlaps(boxes, self.other)
-        for i in np.nonzero(~out & near.any(axis=1))[0]:
-            shape = box(*boxes[i])
-            out[i] = any(shape.intersects(self.shapes[j]) for j in np.nonzero(near[i])[0])
+        near = _overlaps(boxes, self.other) & ~out[:, None]  # the outlines only where the bounds meet
+        ii, jj = np.nonzero(near)
+        if ii.size:
+            hit = shapely.intersects(shapely.box(*boxes[ii].T), np.asarray(self.shapes, dtype=object)[jj])
+            out[ii[hit]] = True
         return out
 
     def crossed(self, line: LineString) -> bool:
@@ -210,36 +211,50 @@ def _outside(it: Item, own: int, board: _Board, rings: int, optional: bool
     step = max(it.height, board.gap) * 1.5
     nearest: tuple[Polygon, tuple[float, float], int] | None = None
     boxed: tuple[Polygon, tuple[float, float], int] | None = None  # a clear box whose leader crosses a label
-    first: Polygon | None = None
     hw, hh = it.width / 2, it.height / 2
-    for ring in range(1, rings + 1):
-        a = 2 * math.pi * np.arange(DIRECTIONS) / DIRECTIONS + (math.pi / DIRECTIONS if ring % 2 else 0.0)
-        # the box's near edge sits ring·step beyond the zone's bounding box in direction a
-        bx = cx + np.cos(a) * ((x1 - x0) / 2 + hw + ring * step)
-        by = cy + np.sin(a) * ((y1 - y0) / 2 + hh + ring * step)
-        cands = np.column_stack([bx - hw, by - hh, bx + hw, by + hh])
-        if first is None:
-            first = box(*cands[0])
-        for k in np.nonzero(board.clear(cands, own))[0]:
-            b = box(*cands[k])
-            anchor = _nearest(it.zone, b)
-            no_label, nothing = board.leader_clear(_leader(b, anchor), own)
-            if nothing:
-                return b, anchor
-            if no_label and nearest is None:
-                nearest = (b, anchor, ring)
-            boxed = boxed or (b, anchor, ring)
-        found = nearest or boxed
-        if found is not None and ring >= found[2] + LEADER_DETOUR:
-            break
+    first = box(*_ring_boxes(np.array([1]), cx, cy, x1 - x0, y1 - y0, hw, hh, step)[0])
+    ring, block = 1, 1
+    while ring <= rings:
+        # the rings of a block are tested in one go (the board does not change meanwhile), then read in order;
+        # blocks double, so a label placed on its first ring costs one ring and a crowded one few calls
+        last = min(ring + block - 1, rings)
+        cands = _ring_boxes(np.arange(ring, last + 1), cx, cy, x1 - x0, y1 - y0, hw, hh, step)
+        clear = board.clear(cands, own).reshape(-1, DIRECTIONS)
+        for r in range(ring, last + 1):
+            for k in np.nonzero(clear[r - ring])[0]:
+                b = box(*cands[(r - ring) * DIRECTIONS + k])
+                anchor = _nearest(it.zone, b)
+                no_label, nothing = board.leader_clear(_leader(b, anchor), own)
+                if nothing:
+                    return b, anchor
+                if no_label and nearest is None:
+                    nearest = (b, anchor, r)
+                boxed = boxed or (b, anchor, r)
+            found = nearest or boxed
+            if found is not None and r >= found[2] + LEADER_DETOUR:
+                ring = rings + 1  # done: leave both loops
+                break
+        else:
+            ring, block = last + 1, min(2 * block, 16)
     if nearest is not None:
         return nearest[0], nearest[1]
     if boxed is not None:
         return boxed[0], boxed[1]
     if optional:
         return None
-    assert first is not None
     return first, _nearest(it.zone, first)
+
+
+def _ring_boxes(rings: np.ndarray, cx: float, cy: float, zw: float, zh: float, hw: float, hh: float,
+                step: float) -> np.ndarray:
+    """The candidate boxes (x0, y0, x1, y1) of some rings, sixteen a ring in ring order: each box's near
+    edge sits ring·step beyond the zone's bounding box (width zw, height zh, centre cx, cy); odd rings
+    are turned half a direction."""
+    r = rings[:, None]
+    a = 2 * math.pi * np.arange(DIRECTIONS)[None, :] / DIRECTIONS + np.where(r % 2 == 1, math.pi / DIRECTIONS, 0.0)
+    bx = (cx + np.cos(a) * (zw / 2 + hw + r * step)).ravel()
+    by = (cy + np.sin(a) * (zh / 2 + hh + r * step)).ravel()
+    return np.column_stack([bx - hw, by - hh, bx + hw, by + hh])
 
 
 def _leader(b: Polygon, anchor: tuple[float, float]) -> LineString:

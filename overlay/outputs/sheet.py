@@ -316,6 +316,10 @@ def _details_on(pen: _Pen, result: "RunResult", plan: SheetPlan, sheet_no: int, 
     prefix = result.site.dxf.prefix
     text_layers = [f"{prefix}-{c.name.upper()}-TEXT" for c in result.site.zones.classes]
     found = defects(result.zones, result.site.zones.classes)
+    half = symbol_mm * plan.per_mm  # a target symbol's half-size in model units
+    targets = np.array([shapely.box(x - half, y - half, x + half, y + half)
+                        for s in result.scans for t in s.targets
+                        for x, y in [move(shapely.Point(t.drawing)).coords[0]]], dtype=object)
     for d in plan.details:
         if d.sheet != sheet_no:
             continue
@@ -324,15 +328,11 @@ def _details_on(pen: _Pen, result: "RunResult", plan: SheetPlan, sheet_no: int, 
         vp.frozen_layers = [*text_layers, f"{prefix}-NOTE", f"{prefix}-ANNOTATION", f"{prefix}-DETAIL"]
         pen.text(f"{d.name}  scan {d.scan_id}  1:{d.scale}", d.paper.x0, d.paper.y0 - 4.0, NOTE_MM)
         mine = [f for f in found if d.scan_id in f.lowest.scan_id.split(";")]
-        half = symbol_mm * plan.per_mm  # a target symbol's half-size in model units
-        targets = [shapely.box(x - half, y - half, x + half, y + half)
-                   for s in result.scans for t in s.targets
-                   for x, y in [move(shapely.Point(t.drawing)).coords[0]]]
         _paper_labels(pen, mine, d, per_mm, move, prefix, targets)
 
 
 def _paper_labels(pen: _Pen, found: Sequence[Any], d: Detail, per_mm: float, move: Callable[[Any], Any],
-                  prefix: str, symbols: Sequence[Any] = ()) -> None:
+                  prefix: str, symbols: np.ndarray | None = None) -> None:
     cx, cy = d.model.centre
     px, py = d.paper.centre
 
@@ -343,8 +343,8 @@ def _paper_labels(pen: _Pen, found: Sequence[Any], d: Detail, per_mm: float, mov
     r = d.paper
     frame = shapely.box(r.x0, r.y0, r.x1, r.y1)
     m = d.model  # only the symbols this view shows are brought onto paper
-    near = [g for g in symbols if g.bounds[0] <= m.x1 and g.bounds[2] >= m.x0 and g.bounds[1] <= m.y1
-            and g.bounds[3] >= m.y0]
+    sb = shapely.bounds(symbols) if symbols is not None and len(symbols) else np.zeros((0, 4))
+    near = symbols[(sb[:, 0] <= m.x1) & (sb[:, 2] >= m.x0) & (sb[:, 1] <= m.y1) & (sb[:, 3] >= m.y0)] if len(sb) else []
     marks = [b for b in (to_paper(g) for g in near) if b.intersects(frame)]
     items = []
     for f in found:
