@@ -19,7 +19,6 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Iterable, Sequence
 
-import numpy as np
 import pyproj
 import shapely
 
@@ -48,22 +47,6 @@ def geometry_blob(geom: Any, srs_id: int) -> bytes:
     x0, y0, x1, y1 = geom.bounds
     header = b"GP\x00" + bytes([0b00000011]) + struct.pack("<i4d", srs_id, x0, x1, y0, y1)
     return header + shapely.to_wkb(geom, output_dimension=2, byte_order=1)
-
-
-def geometry_blobs(geoms: np.ndarray, srs_id: int) -> list[bytes | None]:
-    """:func:`geometry_blob` of many geometries at once (the headers built as one array, the WKB by
-    shapely's vectorised writer); None for a missing or empty geometry, which a table stores as NULL."""
-    geoms = np.asarray(geoms, dtype=object)
-    if not len(geoms):
-        return []
-    skip = shapely.is_missing(geoms) | shapely.is_empty(geoms)
-    wkb = shapely.to_wkb(geoms, output_dimension=2, byte_order=1)
-    head = np.zeros(len(geoms), dtype=[("magic", "S2"), ("version", "u1"), ("flags", "u1"), ("srs", "<i4"),
-                                       ("envelope", "<f8", (4,))])
-    head["magic"], head["flags"], head["srs"] = b"GP", 0b00000011, srs_id
-    head["envelope"] = shapely.bounds(geoms)[:, [0, 2, 1, 3]]  # minx, maxx, miny, maxy
-    raw, size = head.tobytes(), head.dtype.itemsize
-    return [None if s else raw[k * size:(k + 1) * size] + w for k, (s, w) in enumerate(zip(skip.tolist(), wkb))]
 
 
 def _split_blob(blob: bytes) -> tuple[int, bool, tuple[float, ...], bytes]:

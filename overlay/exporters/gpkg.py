@@ -95,7 +95,8 @@ def _write_table(con: sqlite3.Connection, layer: Layer, sid: int) -> None:
     else:
         table = gpkg_sql.create_feature_table(con, layer.name, fields, layer.geometry_type.upper(), sid, index=False)
         # an empty geometry is stored as NULL: GDAL 3.6's validator misreads the standard's empty flag (bit 4)
-        rows = zip(fids, *columns, gpkg_sql.geometry_blobs(layer.geometry, sid))
+        rows = zip(fids, *columns, (None if g is None or g.is_empty else gpkg_sql.geometry_blob(g, sid)
+                                    for g in layer.geometry))
     marks = ", ".join("?" for _ in names.split(", "))
     con.executemany(f"INSERT INTO {gpkg_sql.quote(layer.name)} ({names}) VALUES ({marks})", rows)
     if layer.geometry is None:
