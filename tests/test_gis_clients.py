@@ -294,39 +294,3 @@ def test_every_geopackage_the_demo_writes_passes_the_validator(tmp_path: Path) -
         if HAS_OGRINFO:  # GDAL 3.6 reads every one without a version warning
             done = subprocess.run(["ogrinfo", "-so", "-al", str(p)], capture_output=True, text=True)
             assert "partially supported" not in done.stderr, p
-
-
-@needs_validator
-@pytest.mark.parametrize("crs", [None, "EPSG:25832", "+proj=tmerc +lat_0=0 +lon_0=9.5 +k=1 +x_0=0 +y_0=0 +ellps=GRS80"])
-def test_our_own_geopackage_writer_passes_and_reads_back_in_gdal(tmp_path: Path, crs: str | None) -> None:
-    # drawing frame (no CRS), an EPSG CRS and a CRS without a code: each passes GDAL's validator and GDAL
-    # reads back the values, NULLs, times and flags written
-    import numpy as np
-    import pyogrio
-    import pyproj
-    import shapely
-
-    from overlay.exporters.gpkg import Layer, write_layers
-
-    path = tmp_path / "own.gpkg"
-    crs_obj = pyproj.CRS.from_user_input(crs) if crs else None
-    layer = Layer("things", {
-        "name": np.array(["a", "b", ""], dtype=object), "value": np.array([1.5, np.nan, np.inf]),
-        "count": np.array([3, 0, -2], dtype=np.int64), "ok": np.array([True, False, True]),
-        "when": np.array(["2026-05-04T10:20:30.123", "NaT", "2026-01-01T00:00:00"], dtype="datetime64[ms]"),
-    }, np.array([shapely.box(0, 0, 2, 1), shapely.box(5, 5, 6, 7), shapely.Polygon()], dtype=object), "Polygon")
-    table = Layer("notes", {"text": np.array(["x", "y"], dtype=object)}, None, "")
-    write_layers(path, [layer, table], crs_obj)
-    assert validate(path) == ""
-    back = pyogrio.read_dataframe(path, layer="things")
-    assert back["name"].tolist() == ["a", "b", ""] and back["count"].tolist() == [3, 0, -2]
-    assert back["value"].iloc[0] == 1.5 and back["value"].iloc[1:].isna().all()  # NaN and inf: NULL
-    assert back["ok"].tolist() == [True, False, True]
-    assert str(back["when"].iloc[0]).startswith("2026-05-04 10:20:30.123") and back["when"].isna().tolist() == [
-        False, True, False]
-    assert back.geometry.area.round(9).tolist()[:2] == [2.0, 2.0] and back.geometry.iloc[2] is None  # empty: NULL
-    if crs is None:  # the standard's undefined Cartesian system (srs_id -1), which GDAL names so
-        assert back.crs is None or back.crs.name == "Undefined Cartesian SRS"
-    else:
-        assert back.crs.equals(crs_obj)
-    assert pyogrio.read_dataframe(path, layer="notes", read_geometry=False)["text"].tolist() == ["x", "y"]

@@ -240,10 +240,9 @@ def _rtree_triggers(table: str, geom: str, fid: str, gpkg_version: int) -> list[
 
 
 def create_feature_table(con: sqlite3.Connection, table: str, fields: dict[str, str], geometry_type: str,
-                         srs_id: int, description: str = "", *, index: bool = True) -> Layer:
+                         srs_id: int, description: str = "") -> Layer:
     """A new feature table with typed fields, registered in gpkg_contents and gpkg_geometry_columns, and
-    (``index``) its R-tree spatial index with the triggers of the file's own GeoPackage version; without,
-    the caller fills the table first and then calls :func:`add_spatial_index` with the rows' bounds."""
+    its R-tree spatial index with the triggers of the file's own GeoPackage version."""
     geom, fid = "geom", "fid"
     body = ", ".join([f"{quote(fid)} INTEGER PRIMARY KEY AUTOINCREMENT NOT NULL", f"{quote(geom)} {geometry_type}"]
                      + [f"{quote(n)} {t}" for n, t in fields.items()])
@@ -252,85 +251,15 @@ def create_feature_table(con: sqlite3.Connection, table: str, fields: dict[str, 
                 "VALUES (?, 'features', ?, ?, ?, ?)", (table, table, description, timestamp(), srs_id))
     con.execute("INSERT INTO gpkg_geometry_columns (table_name, column_name, geometry_type_name, srs_id, z, m) "
                 "VALUES (?, ?, ?, ?, 0, 0)", (table, geom, geometry_type, srs_id))
-    layer = Layer(table, geom, geometry_type, srs_id, srs_crs(con, srs_id), fid)
-    if index:
-        add_spatial_index(con, layer, [])
-    return layer
-
-
-def add_spatial_index(con: sqlite3.Connection, layer: Layer, entries: Iterable[tuple[int, float, float, float, float]]
-                      ) -> None:
-    """The layer's R-tree (Annex F.3) filled with ``entries`` (fid, minx, maxx, miny, maxy) of the rows already
-    there — one bulk insert instead of a trigger per row — then its triggers and its extension row."""
-    rtree = quote(f"rtree_{layer.table}_{layer.geometry_column}")
-    con.execute(f"CREATE VIRTUAL TABLE {rtree} USING rtree(id, minx, maxx, miny, maxy)")
-    con.executemany(f"INSERT INTO {rtree} VALUES (?, ?, ?, ?, ?)", entries)
-    for sql in _rtree_triggers(layer.table, layer.geometry_column, layer.fid, version(con)):
+    con.execute(f"CREATE VIRTUAL TABLE {quote(f'rtree_{table}_{geom}')} USING rtree(id, minx, maxx, miny, maxy)")
+    for sql in _rtree_triggers(table, geom, fid, version(con)):
         con.execute(sql)
     con.execute("CREATE TABLE IF NOT EXISTS gpkg_extensions (table_name TEXT, column_name TEXT, "
                 "extension_name TEXT NOT NULL, definition TEXT NOT NULL, scope TEXT NOT NULL, "
                 "CONSTRAINT ge_tce UNIQUE (table_name, column_name, extension_name))")
     con.execute("INSERT INTO gpkg_extensions VALUES (?, ?, 'gpkg_rtree_index', ?, 'write-only')",
-                (layer.table, layer.geometry_column, RTREE_DEFINITION))
-
-
-# --- a new file -------------------------------------------------------------------------------------
-
-_UNDEFINED_SRS = [  # the rows every GeoPackage has (Req 11)
-    ("Undefined Cartesian SRS", -1, "NONE", -1, "undefined", "undefined Cartesian coordinate reference system"),
-    ("Undefined geographic SRS", 0, "NONE", 0, "undefined", "undefined geographic coordinate reference system"),
-]
-OWN_SRS_ID = 100000  # a CRS without an EPSG code gets an id of its own
-
-
-def new_geopackage(path: Path, gpkg_version: int = 10300) -> sqlite3.Connection:
-    """A new, empty GeoPackage at ``path`` (which must not exist) with the required tables and rows
-    (Req 2, 10–14 and their table definitions in Annex C), on a connection in a transaction."""
-    if path.exists():
-        raise FileExistsError(path)
-    con = connect(path, 0.0)
-    con.execute(f"PRAGMA application_id = {APPLICATION_ID}")
-    con.execute(f"PRAGMA user_version = {gpkg_version}")
-    con.execute("BEGIN")
-    con.execute("CREATE TABLE gpkg_spatial_ref_sys (srs_name TEXT NOT NULL, srs_id INTEGER NOT NULL PRIMARY KEY, "
-                "organization TEXT NOT NULL, organization_coordsys_id INTEGER NOT NULL, definition TEXT NOT NULL, "
-                "description TEXT)")
-    con.execute("CREATE TABLE gpkg_contents (table_name TEXT NOT NULL PRIMARY KEY, data_type TEXT NOT NULL, "
-                "identifier TEXT UNIQUE, description TEXT DEFAULT '', last_change DATETIME NOT NULL DEFAULT "
-                "(strftime('%Y-%m-%dT%H:%M:%fZ','now')), min_x DOUBLE, min_y DOUBLE, max_x DOUBLE, max_y DOUBLE, "
-                "srs_id INTEGER, CONSTRAINT fk_gc_r_srs_id FOREIGN KEY (srs_id) REFERENCES gpkg_spatial_ref_sys(srs_id))")
-    con.execute("CREATE TABLE gpkg_geometry_columns (table_name TEXT NOT NULL, column_name TEXT NOT NULL, "
-                "geometry_type_name TEXT NOT NULL, srs_id INTEGER NOT NULL, z TINYINT NOT NULL, m TINYINT NOT NULL, "
-                "CONSTRAINT pk_geom_cols PRIMARY KEY (table_name, column_name), "
-                "CONSTRAINT uk_gc_table_name UNIQUE (table_name), "
-                "CONSTRAINT fk_gc_tn FOREIGN KEY (table_name) REFERENCES gpkg_contents(table_name), "
-                "CONSTRAINT fk_gc_srs FOREIGN KEY (srs_id) REFERENCES gpkg_spatial_ref_sys (srs_id))")
-    con.executemany("INSERT INTO gpkg_spatial_ref_sys VALUES (?, ?, ?, ?, ?, ?)", _UNDEFINED_SRS)
-    srs_id(con, pyproj.CRS.from_epsg(4326), "WGS 84 geodetic",
-           "longitude/latitude coordinates in decimal degrees on the WGS 84 spheroid")
-    return con
-
-
-def srs_id(con: sqlite3.Connection, crs: pyproj.CRS | None, name: str | None = None, description: str = "") -> int:
-    """The gpkg_spatial_ref_sys id of ``crs``, its row added when missing (-1, undefined Cartesian, for
-    None: geometry in the drawing frame).  The definition is WKT 1, as GeoPackage 1.3 asks (Req 11)."""
-    if crs is None:
-        return -1
-    epsg = crs.to_epsg(min_confidence=100)
-    sid = epsg if epsg is not None else OWN_SRS_ID
-    if con.execute("SELECT 1 FROM gpkg_spatial_ref_sys WHERE srs_id = ?", (sid,)).fetchone() is None:
-        wkt = crs.to_wkt("WKT1_GDAL") or crs.to_wkt()
-        con.execute("INSERT INTO gpkg_spatial_ref_sys VALUES (?, ?, ?, ?, ?, ?)",
-                    (name or crs.name, sid, "EPSG" if epsg is not None else "NONE", sid, wkt, description))
-    return sid
-
-
-def create_attributes_table(con: sqlite3.Connection, table: str, fields: dict[str, str], description: str = "") -> None:
-    """A table without geometry, registered as 'attributes' (GeoPackage §2.4)."""
-    body = ", ".join(['"fid" INTEGER PRIMARY KEY AUTOINCREMENT NOT NULL'] + [f"{quote(n)} {t}" for n, t in fields.items()])
-    con.execute(f"CREATE TABLE {quote(table)} ({body})")
-    con.execute("INSERT INTO gpkg_contents (table_name, data_type, identifier, description, last_change) "
-                "VALUES (?, 'attributes', ?, ?, ?)", (table, table, description, timestamp()))
+                (table, geom, RTREE_DEFINITION))
+    return Layer(table, geom, geometry_type, srs_id, srs_crs(con, srs_id), fid)
 
 
 def add_columns(con: sqlite3.Connection, table: str, fields: dict[str, str]) -> list[str]:

@@ -159,29 +159,27 @@ def pictures_of(result: "RunResult", cal: Calibration) -> dict[str, bytes]:
 
 def write_disagreements(path: Path, result: "RunResult", cal: Calibration) -> None:
     """The follow-up visit's GeoPackage: disagreement areas, and the sounding points with the VER they read."""
-    from overlay.exporters.gpkg import Layer, to_output_frame, write_layers
+    from overlay.exporters.gpkg import GPKG_VERSION, Layer, to_output_frame, write_layer
 
     move, crs = to_output_frame(result)
     u2 = result.unit_m ** 2
     lowest = result.site.zones.classes[0].threshold_db
     dis = cal.disagreements
+    write_layer(path, Layer("disagreements", {
+        "kind": np.array([k for k, _, _ in dis], dtype=object),
+        "element": np.array([e for _, e, _ in dis], dtype=object),
+        "area_m2": np.array([g.area * u2 for _, _, g in dis], dtype=np.float64),
+        "level_db": np.full(len(dis), lowest, dtype=np.float64),
+    }, np.array([move(g) for _, _, g in dis], dtype=object), "Polygon"), crs, {"VERSION": GPKG_VERSION})
     pts = cal.point_xy if cal.point_xy is not None else np.zeros((0, 2))
     ver = cal.point_ver if cal.point_ver is not None else np.zeros(0)
     hollow = cal.point_hollow if cal.point_hollow is not None else np.zeros(0, dtype=bool)
-    write_layers(path, [
-        Layer("disagreements", {
-            "kind": np.array([k for k, _, _ in dis], dtype=object),
-            "element": np.array([e for _, e, _ in dis], dtype=object),
-            "area_m2": np.array([g.area * u2 for _, _, g in dis], dtype=np.float64),
-            "level_db": np.full(len(dis), lowest, dtype=np.float64),
-        }, np.array([move(g) for _, _, g in dis], dtype=object), "Polygon"),
-        Layer("sounding_points", {
-            "verdict": np.array(["hollow" if h else "sound" for h in hollow], dtype=object),
-            "element": np.array(list(cal.point_elements), dtype=object),
-            "ver_db": np.asarray(ver, dtype=np.float64),
-            "agrees": (np.asarray(ver) >= lowest) == hollow,
-        }, np.array([move(shapely.Point(p)) for p in pts], dtype=object), "Point"),
-    ], crs)
+    write_layer(path, Layer("sounding_points", {
+        "verdict": np.array(["hollow" if h else "sound" for h in hollow], dtype=object),
+        "element": np.array(list(cal.point_elements), dtype=object),
+        "ver_db": np.asarray(ver, dtype=np.float64),
+        "agrees": (np.asarray(ver) >= lowest) == hollow,
+    }, np.array([move(shapely.Point(p)) for p in pts], dtype=object), "Point"), crs)
 
 
 def write_all(staged: dict[str, Path], result: "RunResult", cal: Calibration) -> None:

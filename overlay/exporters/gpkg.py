@@ -1,9 +1,7 @@
 """GeoPackage exporter: zones, points, scan extents and targets in the map CRS, plus a runs table.
 
-Written through Python's own SQLite as GeoPackage 1.3 (the version the GIS of long-term
-distributions reads without a warning), in one transaction and without GDAL — whose import
-(it brings pandas and geopandas along) cost more than the writing; dates are DATETIME (UTC)
-and flags BOOLEAN, the R-tree index filled in bulk.
+Written through pyogrio (GDAL) as GeoPackage 1.3, the version the GIS of long-term
+distributions reads without a warning; dates are DATETIME (UTC) and flags BOOLEAN.
 Field titles and descriptions go into the schema extension (with its constraints
 table, so GDAL's validator passes), and each layer gets a default style in
 ``layer_styles`` in the shared palette, which a desktop GIS applies at open
@@ -14,11 +12,11 @@ file, geometries stay in drawing coordinates (metres) with no CRS.
 from __future__ import annotations
 
 import json
-import math
 import sqlite3
+import warnings
 from dataclasses import dataclass
 from pathlib import Path
-from typing import TYPE_CHECKING, Any, Callable
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import shapely
@@ -33,15 +31,15 @@ if TYPE_CHECKING:
     from overlay.job import RunResult
 
 GPKG_VERSION = "1.3"  # read without a warning by GDAL 3.6 / QGIS 3.22 (Debian 12) and every later release
-GPKG_VERSION_NUMBER = 10300  # its PRAGMA user_version (Req 2)
 STYLE_NAME = "overlay default"
+GDAL_UTC = 100  # GDAL's time-zone flag for UTC (its RFC 56)
 
 
 @dataclass(frozen=True)
 class Layer:
     """One layer as plain columns: field name → numpy array (float64, int64, bool, text as object,
-    times as datetime64 in UTC), the geometries, their type.  Written as columns, without a data
-    frame library: the points layer of a 50,000-point scan in a fraction of the time."""
+    times as datetime64 in UTC), the geometries, their type.  Written straight through GDAL, without
+    a data frame library: the points layer of a 50,000-point scan in a fraction of the time."""
 
     name: str
     fields: dict[str, np.ndarray]
@@ -63,63 +61,21 @@ def utc_times(values: Any) -> np.ndarray:
                      for v in values], dtype="datetime64[ms]")
 
 
-_SQL_TYPES = {"f": "REAL", "i": "INTEGER", "b": "BOOLEAN", "O": "TEXT", "M": "DATETIME"}
+def write_layer(path: Path, layer: Layer, crs: Any, options: dict[str, str] | None = None) -> None:
+    """One layer into the GeoPackage at ``path`` (created by the first layer, with ``options``)."""
+    import pyogrio.raw
 
-
-def write_layers(path: Path, layers: list[Layer], crs: Any, describe: Callable[[sqlite3.Connection], None] | None = None
-                 ) -> None:
-    """A new GeoPackage at ``path`` holding ``layers`` (geometry in ``crs``; a layer without geometry becomes
-    an attributes table), written in one SQLite transaction; ``describe`` adds field notes and styles on
-    the same connection before the commit."""
-    con = gpkg_sql.new_geopackage(path, GPKG_VERSION_NUMBER)
-    try:
-        sid = gpkg_sql.srs_id(con, crs)
-        for layer in layers:
-            _write_table(con, layer, sid)
-        if describe is not None:
-            describe(con)
-        con.execute("COMMIT")
-    finally:
-        con.close()
-
-
-def _write_table(con: sqlite3.Connection, layer: Layer, sid: int) -> None:
-    fields = {n: _SQL_TYPES[a.dtype.kind] for n, a in layer.fields.items()}
-    columns = [_sql_values(a) for a in layer.fields.values()]
-    names = ", ".join(gpkg_sql.quote(n) for n in ["fid", *fields] + (["geom"] if layer.geometry is not None else []))
-    n = len(layer.geometry) if layer.geometry is not None else len(next(iter(layer.fields.values()), []))
-    fids = range(1, n + 1)
-    if layer.geometry is None:
-        gpkg_sql.create_attributes_table(con, layer.name, fields)
-        rows: Any = zip(fids, *columns)
-    else:
-        table = gpkg_sql.create_feature_table(con, layer.name, fields, layer.geometry_type.upper(), sid, index=False)
-        # an empty geometry is stored as NULL: GDAL 3.6's validator misreads the standard's empty flag (bit 4)
-        rows = zip(fids, *columns, (None if g is None or g.is_empty else gpkg_sql.geometry_blob(g, sid)
-                                    for g in layer.geometry))
-    marks = ", ".join("?" for _ in names.split(", "))
-    con.executemany(f"INSERT INTO {gpkg_sql.quote(layer.name)} ({names}) VALUES ({marks})", rows)
-    if layer.geometry is None:
-        return
-    b = shapely.bounds(layer.geometry) if n else np.zeros((0, 4))  # NaN for an empty geometry: not indexed
-    ok = np.isfinite(b).all(axis=1)
-    gpkg_sql.add_spatial_index(con, table, [(int(i) + 1, x0, x1, y0, y1) for i, (x0, y0, x1, y1)
-                                            in zip(np.nonzero(ok)[0], b[ok].tolist())])
-    if ok.any():
-        con.execute("UPDATE gpkg_contents SET min_x = ?, min_y = ?, max_x = ?, max_y = ? WHERE table_name = ?",
-                    (*b[ok, :2].min(axis=0).tolist(), *b[ok, 2:].max(axis=0).tolist(), layer.name))
-
-
-def _sql_values(a: np.ndarray) -> list[Any]:
-    """A column as SQLite values: NaN and infinities NULL, booleans 0/1, times GeoPackage DATETIME text (UTC)."""
-    if a.dtype.kind == "f":
-        return [v if math.isfinite(v) else None for v in a.tolist()]
-    if a.dtype.kind == "b":
-        return [int(v) for v in a.tolist()]
-    if a.dtype.kind == "M":
-        text = np.datetime_as_string(a.astype("datetime64[ms]"), unit="ms")
-        return [None if t == "NaT" else t + "Z" for t in text.tolist()]
-    return a.tolist()
+    names = list(layer.fields)
+    data = [np.where(np.isfinite(a), a, np.nan) if a.dtype.kind == "f" else a for a in layer.fields.values()]
+    times = {n: np.full(len(a), GDAL_UTC, dtype=np.int64) for n, a in layer.fields.items() if a.dtype.kind == "M"}
+    with warnings.catch_warnings():
+        # without a map frame the layers are in drawing metres with no CRS, on purpose
+        warnings.filterwarnings("ignore", message="'crs' was not provided")
+        pyogrio.raw.write(path, geometry=shapely.to_wkb(layer.geometry) if layer.geometry is not None else None,
+                          field_data=data, fields=names, layer=layer.name, driver="GPKG",
+                          geometry_type=layer.geometry_type or None, crs=crs.to_wkt() if crs is not None else None,
+                          promote_to_multi=False, nan_as_null=True, dataset_options=options,
+                          gdal_tz_offsets=times, append=options is None)
 
 
 class GeoPackageExporter:
@@ -129,16 +85,20 @@ class GeoPackageExporter:
 
     def write(self, result: "RunResult", path: Path) -> None:
         _, crs = to_output_frame(result)
-
-        def describe(con: sqlite3.Connection) -> None:
-            gpkg_sql.describe_columns(con, FIELD_DOCS, enums={("zones", "class"): [c.name for c in result.site.zones.classes]},
-                                      ranges={("zones", "confidence"): (0.0, 1.0)})
-            found = gpkg_sql.layers(con)
-            for name, style in layer_styles(result).items():
-                gpkg_sql.put_style(con, found[name], STYLE_NAME, styles.qml(style), styles.sld(style, name),
-                                   "written by overlay: classes in the colours of the DXF and the pictures")
-
-        write_layers(path, [*layers(result), _runs(result)], crs, describe)
+        for i, layer in enumerate([*layers(result), _runs(result)]):
+            write_layer(path, layer, crs if layer.geometry is not None else None,
+                        {"VERSION": GPKG_VERSION} if i == 0 else None)
+        con = sqlite3.connect(path)
+        try:
+            with con:
+                gpkg_sql.describe_columns(con, FIELD_DOCS, enums={("zones", "class"): [c.name for c in result.site.zones.classes]},
+                                          ranges={("zones", "confidence"): (0.0, 1.0)})
+                found = gpkg_sql.layers(con)
+                for name, style in layer_styles(result).items():
+                    gpkg_sql.put_style(con, found[name], STYLE_NAME, styles.qml(style), styles.sld(style, name),
+                                       "written by overlay: classes in the colours of the DXF and the pictures")
+        finally:
+            con.close()
 
 
 def _column(rows: list[dict[str, Any]], key: str, kind: str) -> np.ndarray:
