@@ -78,13 +78,17 @@ class _Layer:
             self.shapes.append(g)
 
     def blocked(self, boxes: np.ndarray) -> np.ndarray:
-        """For each box (k, 4) whether anything here meets it."""
-        out = _overlaps(boxes, self.rects).any(axis=1)
-        near = _overlaps(boxes, self.other) & ~out[:, None]  # the outlines only where the bounds meet
-        ii, jj = np.nonzero(near)
+        """For each box (k, 4) whether anything here meets it.  Only what lies within the boxes' joint
+        bounds is compared box by box: the candidates of one call are near one zone, and a campaign's
+        drawing holds thousands of labels (comparing every box with all of them made placement quadratic)."""
+        region = np.array([[boxes[:, 0].min(), boxes[:, 1].min(), boxes[:, 2].max(), boxes[:, 3].max()]])
+        rects = self.rects[_overlaps(region, self.rects)[0]]
+        out = _overlaps(boxes, rects).any(axis=1)
+        idx = np.nonzero(_overlaps(region, self.other)[0])[0]
+        ii, jj = np.nonzero(_overlaps(boxes, self.other[idx]) & ~out[:, None])  # outlines only where bounds meet
         if ii.size:
-            hit = shapely.intersects(shapely.box(*boxes[ii].T), np.asarray(self.shapes, dtype=object)[jj])
-            out[ii[hit]] = True
+            shapes = np.array([self.shapes[j] for j in idx[jj]], dtype=object)
+            out[ii[shapely.intersects(shapely.box(*boxes[ii].T), shapes)]] = True
         return out
 
     def crossed(self, line: LineString) -> bool:
