@@ -204,12 +204,17 @@ class DxfExporter:
         # the legend goes below everything drawn: bounds we know (measuring every entity again costs a second
         # on a campaign's drawing); the labels' boxes with a line's height to spare for the font's own measure
         spare = [p.box.buffer(text.label, join_style="mitre") for p in placed]
+        legend_from = len(msp)
         _legend_and_note(msp, result, style, text, _bounds(drawn + around + spare + names, owners_box))
         sheet.callouts(msp, plan, fixed["detail"], text.note, style.text_style)
         for e in msp:  # mark everything we drew, so a rerun can take it away again
             if e.dxf.handle not in before and not e.has_xdata(APPID):
                 e.set_xdata(APPID, [(1000, OURS)])
-        extent = bbox.extents(msp)
+        # what is drawn spans what we know the bounds of, and the legend, note and callouts measured by
+        # ezdxf (measuring every entity again took 4-5 s on an 800-scan campaign's 45,000 entities)
+        extent = bbox.extents(list(msp)[legend_from:])
+        x0, y0, x1, y1 = _bounds(drawn + around + [p.box for p in placed] + leaders + names, owners_box)
+        extent.extend([(x0, y0), (x1, y1)])
         _open_at_extents(doc, extent)
         sheet.add_sheets(doc, result, plan, fixed["sheet"], style, (APPID, OURS), move)
         dxf_save.save(doc, path)

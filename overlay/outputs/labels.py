@@ -94,9 +94,12 @@ class _Layer:
     def crossed(self, line: LineString) -> bool:
         """Whether the line meets anything here."""
         b = np.asarray(line.bounds)[None, :]
-        if any(line.intersects(box(*r)) for r in self.rects[_overlaps(b, self.rects)[0]]):
+        near = self.rects[_overlaps(b, self.rects)[0]]
+        if near.size and shapely.intersects(line, shapely.box(*near.T)).any():
             return True
-        return any(line.intersects(self.shapes[j]) for j in np.nonzero(_overlaps(b, self.other)[0])[0])
+        idx = np.nonzero(_overlaps(b, self.other)[0])[0]
+        shapes = np.array([self.shapes[j] for j in idx], dtype=object)
+        return bool(idx.size) and bool(shapely.intersects(line, shapes).any())
 
 
 def _put(rows: np.ndarray, n: int, bounds: Bounds) -> np.ndarray:
