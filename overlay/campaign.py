@@ -9,16 +9,11 @@ a scan's result lets a rerun recompute only the scans that changed.
 
 from __future__ import annotations
 
-import contextlib
-import ctypes
 import dataclasses
 import functools
 import hashlib
 import json
 import os
-import signal
-import sys
-import threading
 import time
 import warnings
 from concurrent.futures import ProcessPoolExecutor
@@ -38,6 +33,7 @@ from overlay.errors import (
 )
 from overlay.job import RunResult, finish_site, now_utc
 from overlay.outputs.staging import part_path, remove_stale_parts
+from overlay.processes import die_with_parent
 from overlay.scan import ScanResult, scan_entry
 from overlay.settings import ScanEntry, Site
 
@@ -173,35 +169,12 @@ def _pool_worker(site: Site | None = None) -> None:
     """A process-pool worker: the site it will work for, one spectra thread, and it ends with its parent."""
     _SITE[:] = [site] if site is not None else []
     _one_thread()
-    _die_with_parent()
+    die_with_parent()
 
 
 def _work_here(entry: ScanEntry) -> tuple[ScanResult | None, Failure | None, list[Seen]]:
     """One scan in a pool worker, for the site the worker was started with."""
     return _work(entry, _SITE[0])
-
-
-def _die_with_parent() -> None:
-    """A worker whose parent is killed (even by SIGKILL) ends too instead of running on alone.
-
-    On Linux the kernel sends the signal (prctl PR_SET_PDEATHSIG); elsewhere a watcher thread
-    notices the parent is gone.
-    """
-    parent = os.getppid()
-    signal.signal(signal.SIGTERM, signal.SIG_DFL)  # not the parent's clean-up handler: just end
-    if sys.platform.startswith("linux"):
-        with contextlib.suppress(OSError, AttributeError):
-            ctypes.CDLL(None, use_errno=True).prctl(1, signal.SIGTERM, 0, 0, 0)  # PR_SET_PDEATHSIG = 1
-        if os.getppid() != parent:  # the parent went before the call took effect
-            os._exit(1)
-        return
-
-    def watch() -> None:
-        while os.getppid() == parent:
-            time.sleep(1.0)
-        os._exit(1)
-
-    threading.Thread(target=watch, daemon=True).start()
 
 
 def _map_local(entries: list[ScanEntry], site: Site, jobs: int, progress: Callable[[int], None] | None

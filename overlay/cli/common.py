@@ -56,6 +56,7 @@ def run_and_write(site: Site, out: Path, args: argparse.Namespace, *, overwrite:
     from overlay.job import RunOptions, run
     from overlay.outputs.report_text import run_report
 
+    tqdm.monitor_interval = 0  # no monitor thread: the outputs are written beside a forked process (overlay.processes)
     hide = True if args.quiet else None  # None: tqdm shows bars on a terminal only
     scans = tqdm(total=len(site.scans), desc="scans ", unit="scan", disable=hide, file=sys.stderr, position=0)
     single = args.jobs <= 1 and not args.dask

@@ -125,8 +125,10 @@ class Staged:
     def discard(self) -> None:
         """Remove every temporary file and every folder we created that is left empty."""
         for tmp in self.temps.values():
-            with contextlib.suppress(FileNotFoundError):
-                tmp.unlink()
+            # and what a writer library keeps beside it while it writes (SQLite's -journal, -wal, -shm)
+            for p in [tmp, *tmp.parent.glob(glob_escape(tmp.name) + "?*")]:
+                with contextlib.suppress(FileNotFoundError):
+                    p.unlink()
         for folder in reversed(self._made):
             with contextlib.suppress(OSError):
                 folder.rmdir()

@@ -314,18 +314,7 @@ def _write_staged(result: "RunResult", exporters: dict[str, "Exporter"], paths: 
     from overlay.outputs.report_html import report_pages, site_report
     from overlay.outputs.report_text import run_report
 
-    for fmt, exporter in exporters.items():
-        try:
-            exporter.write(result, staged[paths[fmt]])
-        except OverlayError:
-            raise
-        except OSError as exc:
-            raise OutputWriteError(f"exporter {fmt!r} could not write ({exc.strerror or exc})", source=paths[fmt]) from exc
-        except Exception as exc:
-            if _out_of_room(exc, paths[fmt].parent):
-                raise OutputWriteError(f"exporter {fmt!r} could not write: no space left on device",
-                                       source=paths[fmt]) from exc
-            raise ExporterError(f"exporter {fmt!r} failed: {type(exc).__name__}: {exc}", source=paths[fmt]) from exc
+    _write_formats(result, exporters, paths, staged)
     _write_text(staged[paths["report"]], run_report(result))
     if not pics:
         return
@@ -348,6 +337,44 @@ def _write_staged(result: "RunResult", exporters: dict[str, "Exporter"], paths: 
                 page = Path(tmp) / name
                 _write_text(page, text)
                 _print(staged, page, pages[name[:-5] + ".pdf"], browser, pdf)
+
+
+def _write_formats(result: "RunResult", exporters: dict[str, "Exporter"], paths: dict[str, Path],
+                   staged: Staged) -> None:
+    """Every format into its temporary file: the DXF here and, meanwhile, the others in a second process
+    (overlay.processes), where one can be forked; else all here, one after the other."""
+    from overlay.processes import Beside, can_fork
+
+    def write(formats: list[str]) -> None:
+        for fmt in formats:
+            _export(fmt, exporters[fmt], result, staged[paths[fmt]], paths[fmt])
+
+    here = [f for f in exporters if f == "dxf"]
+    there = [f for f in exporters if f != "dxf"]
+    if not (here and there and can_fork()):
+        write(list(exporters))
+        return
+    beside = Beside(lambda: write(there))
+    try:
+        write(here)
+    except BaseException:
+        beside.stop()
+        raise
+    beside.wait()
+
+
+def _export(fmt: str, exporter: "Exporter", result: "RunResult", path: Path, final: Path) -> None:
+    """One format to ``path``; a library's failure becomes our error naming the final file."""
+    try:
+        exporter.write(result, path)
+    except OverlayError:
+        raise
+    except OSError as exc:
+        raise OutputWriteError(f"exporter {fmt!r} could not write ({exc.strerror or exc})", source=final) from exc
+    except Exception as exc:
+        if _out_of_room(exc, final.parent):
+            raise OutputWriteError(f"exporter {fmt!r} could not write: no space left on device", source=final) from exc
+        raise ExporterError(f"exporter {fmt!r} failed: {type(exc).__name__}: {exc}", source=final) from exc
 
 
 def _print(staged: Staged, html_path: Path, pdf_path: Path, browser: str, pdf: bool | None) -> None:
