@@ -63,10 +63,6 @@ class Beside:
         self._process.start()
         send.close()
 
-    @property
-    def pid(self) -> int | None:
-        return self._process.pid
-
     def wait(self) -> None:
         """Until the work is done: its warnings are warned here, its error (if any) raised here."""
         try:

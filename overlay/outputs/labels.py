@@ -95,11 +95,10 @@ class _Layer:
         """Whether the line meets anything here."""
         b = np.asarray(line.bounds)[None, :]
         near = self.rects[_overlaps(b, self.rects)[0]]
-        if near.size and shapely.intersects(line, shapely.box(*near.T)).any():
+        if shapely.intersects(line, shapely.box(*near.T)).any():
             return True
-        idx = np.nonzero(_overlaps(b, self.other)[0])[0]
-        shapes = np.array([self.shapes[j] for j in idx], dtype=object)
-        return bool(idx.size) and bool(shapely.intersects(line, shapes).any())
+        shapes = np.array([self.shapes[j] for j in np.nonzero(_overlaps(b, self.other)[0])[0]], dtype=object)
+        return bool(shapely.intersects(line, shapes).any())
 
 
 def _put(rows: np.ndarray, n: int, bounds: Bounds) -> np.ndarray:

@@ -124,11 +124,16 @@ class Staged:
 
     def discard(self) -> None:
         """Remove every temporary file and every folder we created that is left empty."""
+        by_folder: dict[Path, list[str]] = {}
         for tmp in self.temps.values():
-            # and what a writer library keeps beside it while it writes (SQLite's -journal, -wal, -shm)
-            for p in [tmp, *tmp.parent.glob(glob_escape(tmp.name) + "?*")]:
-                with contextlib.suppress(FileNotFoundError):
-                    p.unlink()
+            by_folder.setdefault(tmp.parent, []).append(tmp.name)
+        for folder, names in by_folder.items():
+            # each folder listed once (a campaign's pictures are a thousand temporary files): the temporary
+            # files and what a writer library keeps beside one while it writes (SQLite's -journal, -wal)
+            with contextlib.suppress(FileNotFoundError):
+                for p in [p for p in folder.iterdir() if p.name.startswith(tuple(names))]:
+                    with contextlib.suppress(FileNotFoundError):
+                        p.unlink()
         for folder in reversed(self._made):
             with contextlib.suppress(OSError):
                 folder.rmdir()
