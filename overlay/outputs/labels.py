@@ -54,8 +54,8 @@ class _Layer:
 
     def __init__(self) -> None:
         self._rects, self._other = np.zeros((64, 4)), np.zeros((64, 4))  # room to grow, doubled when full
+        self._shapes = np.empty(64, dtype=object)  # the other shapes, row for row with _other
         self.n_rects = self.n_other = 0
-        self.shapes: list[BaseGeometry] = []
 
     @property
     def rects(self) -> np.ndarray:
@@ -67,15 +67,15 @@ class _Layer:
 
     def add(self, g: BaseGeometry) -> None:
         b = g.bounds
-        rect = g.geom_type == "Polygon" and len(g.exterior.coords) == 5 and abs(
-            g.area - (b[2] - b[0]) * (b[3] - b[1])) <= 1e-12 * (1.0 + g.area)
-        if rect:
+        if _is_rect(g):
             self._rects = _put(self._rects, self.n_rects, b)
             self.n_rects += 1
         else:
             self._other = _put(self._other, self.n_other, b)
+            if self.n_other == len(self._shapes):
+                self._shapes = np.concatenate([self._shapes, np.empty_like(self._shapes)])
+            self._shapes[self.n_other] = g
             self.n_other += 1
-            self.shapes.append(g)
 
     def blocked(self, boxes: np.ndarray) -> np.ndarray:
         """For each box (k, 4) whether anything here meets it.  Only what lies within the boxes' joint
@@ -86,9 +86,8 @@ class _Layer:
         out = _overlaps(boxes, rects).any(axis=1)
         idx = np.nonzero(_overlaps(region, self.other)[0])[0]
         ii, jj = np.nonzero(_overlaps(boxes, self.other[idx]) & ~out[:, None])  # outlines only where bounds meet
-        if ii.size:
-            shapes = np.array([self.shapes[j] for j in idx[jj]], dtype=object)
-            out[ii[shapely.intersects(shapely.box(*boxes[ii].T), shapes)]] = True
+        if ii.size:  # one box geometry per candidate, however many shapes it is tested against
+            out[ii[shapely.intersects(shapely.box(*boxes.T)[ii], self._shapes[idx[jj]])]] = True
         return out
 
     def crossed(self, line: LineString) -> bool:
@@ -97,8 +96,43 @@ class _Layer:
         near = self.rects[_overlaps(b, self.rects)[0]]
         if shapely.intersects(line, shapely.box(*near.T)).any():
             return True
-        shapes = np.array([self.shapes[j] for j in np.nonzero(_overlaps(b, self.other)[0])[0]], dtype=object)
-        return bool(shapely.intersects(line, shapes).any())
+        return bool(shapely.intersects(line, self._shapes[: self.n_other][_overlaps(b, self.other)[0]]).any())
+
+
+class _Fixed:
+    """The caller's obstacles, which do not change while labels are placed, in an STR-tree: a candidate
+    box is matched with the obstacles whose bounds meet its own by one query of the tree, and tested
+    against the outline of those that are not rectangles (a campaign's drawing has thousands of
+    obstacles; comparing each candidate with all their bounds was most of the placement's time)."""
+
+    def __init__(self, geoms: Sequence[BaseGeometry]) -> None:
+        self.geoms = np.array([g for g in geoms if not g.is_empty], dtype=object)
+        self.tree = shapely.STRtree(self.geoms)
+        self.rect = np.array([_is_rect(g) for g in self.geoms], dtype=bool)
+
+    def blocked(self, boxes: np.ndarray) -> np.ndarray:
+        """For each box (k, 4) whether an obstacle meets it."""
+        out = np.zeros(len(boxes), dtype=bool)
+        geoms = shapely.box(*boxes.T)
+        ii, jj = self.tree.query(geoms)
+        out[ii[self.rect[jj]]] = True
+        keep = ~self.rect[jj] & ~out[ii]
+        ii, jj = ii[keep], jj[keep]
+        if ii.size:
+            out[ii[shapely.intersects(geoms[ii], self.geoms[jj])]] = True
+        return out
+
+    def crossed(self, line: LineString) -> bool:
+        """Whether the line meets an obstacle."""
+        return bool(self.tree.query(line, predicate="intersects").size)
+
+
+def _is_rect(g: BaseGeometry) -> bool:
+    """An axis-aligned rectangle: its bounds alone say what it meets."""
+    if g.geom_type != "Polygon" or len(g.exterior.coords) != 5:
+        return False
+    b = g.bounds
+    return abs(g.area - (b[2] - b[0]) * (b[3] - b[1])) <= 1e-12 * (1.0 + g.area)
 
 
 def _put(rows: np.ndarray, n: int, bounds: Bounds) -> np.ndarray:
@@ -121,10 +155,7 @@ class _Board:
     def __init__(self, items: Sequence[Item], obstacles: Sequence[BaseGeometry], gap: float, within: Bounds | None):
         self.gap, self.within = gap, within
         self.placed = _Layer()
-        self.obstacles = _Layer()
-        for o in obstacles:
-            if not o.is_empty:
-                self.obstacles.add(o)
+        self.obstacles = _Fixed(obstacles)
         self.zones = shapely.STRtree([it.zone for it in items]) if items else None
 
     def clear(self, boxes: np.ndarray, own: int) -> np.ndarray:
@@ -142,9 +173,7 @@ class _Board:
         idx = np.nonzero(ok)[0]
         if idx.size and self.zones is not None:
             cand, hit = self.zones.query(shapely.box(*grown[idx].T), predicate="intersects")
-            for c, k in zip(cand, hit):
-                if int(k) != own:
-                    ok[idx[c]] = False
+            ok[idx[cand[hit != own]]] = False
         return ok
 
     def leader_clear(self, line: LineString, own: int) -> tuple[bool, bool]:
@@ -164,7 +193,8 @@ class _Board:
 
 def place_labels(items: Sequence[Item], gap: float, obstacles: Sequence[BaseGeometry] = (), *,
                  within: Bounds | None = None, rings: int = MAX_RINGS, optional: bool = False) -> list[Placed]:
-    """A clear box for every item (see the module docstring); ``gap`` is the clearance kept around boxes.
+    """A clear box for every item (see the module docstring); ``gap`` is the clearance kept around boxes:
+    each box ends at least gap/2 from every other box, leader, obstacle and other item's zone.
     ``obstacles`` (other text, symbols, lines) are kept clear by the boxes, and by the leaders where
     there is any choice; ``within`` (x0, y0, x1, y1) keeps every box inside a frame.  ``optional``
     items that find no clear box within ``rings`` rings are left out (a secondary name in a crowded
