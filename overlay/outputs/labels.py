@@ -81,6 +81,8 @@ class _Layer:
         """For each box (k, 4) whether anything here meets it.  Only what lies within the boxes' joint
         bounds is compared box by box: the candidates of one call are near one zone, and a campaign's
         drawing holds thousands of labels (comparing every box with all of them made placement quadratic)."""
+        if not (self.n_rects or self.n_other):
+            return np.zeros(len(boxes), dtype=bool)
         region = np.array([[boxes[:, 0].min(), boxes[:, 1].min(), boxes[:, 2].max(), boxes[:, 3].max()]])
         rects = self.rects[_overlaps(region, self.rects)[0]]
         out = _overlaps(boxes, rects).any(axis=1)
@@ -100,31 +102,32 @@ class _Layer:
 
 
 class _Fixed:
-    """The caller's obstacles, which do not change while labels are placed, in an STR-tree: a candidate
-    box is matched with the obstacles whose bounds meet its own by one query of the tree, and tested
-    against the outline of those that are not rectangles (a campaign's drawing has thousands of
-    obstacles; comparing each candidate with all their bounds was most of the placement's time)."""
+    """The caller's obstacles, which do not change while labels are placed, in two STR-trees: rectangles
+    (text boxes, symbols' boxes), met wherever their bounds meet a box, and the other shapes (zones,
+    leaders), tested by outline against the boxes no rectangle blocks.  A campaign's drawing has
+    thousands of obstacles: comparing each candidate with all their bounds was most of the time."""
 
     def __init__(self, geoms: Sequence[BaseGeometry]) -> None:
-        self.geoms = np.array([g for g in geoms if not g.is_empty], dtype=object)
-        self.tree = shapely.STRtree(self.geoms)
-        self.rect = np.array([_is_rect(g) for g in self.geoms], dtype=bool)
+        kept = [g for g in geoms if not g.is_empty]
+        self.rects = shapely.STRtree([g for g in kept if _is_rect(g)])
+        self.shapes = np.array([g for g in kept if not _is_rect(g)], dtype=object)
+        self.other = shapely.STRtree(self.shapes)
 
     def blocked(self, boxes: np.ndarray) -> np.ndarray:
         """For each box (k, 4) whether an obstacle meets it."""
         out = np.zeros(len(boxes), dtype=bool)
         geoms = shapely.box(*boxes.T)
-        ii, jj = self.tree.query(geoms)
-        out[ii[self.rect[jj]]] = True
-        keep = ~self.rect[jj] & ~out[ii]
-        ii, jj = ii[keep], jj[keep]
-        if ii.size:
-            out[ii[shapely.intersects(geoms[ii], self.geoms[jj])]] = True
+        out[self.rects.query(geoms)[0]] = True
+        free = np.nonzero(~out)[0]
+        ii, jj = self.other.query(geoms[free])  # bounds first, then the outline where they meet
+        hit = shapely.intersects(geoms[free[ii]], self.shapes[jj])
+        out[free[ii[hit]]] = True
         return out
 
     def crossed(self, line: LineString) -> bool:
         """Whether the line meets an obstacle."""
-        return bool(self.tree.query(line, predicate="intersects").size)
+        return bool(self.rects.query(line, predicate="intersects").size
+                    or self.other.query(line, predicate="intersects").size)
 
 
 def _is_rect(g: BaseGeometry) -> bool:
