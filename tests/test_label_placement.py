@@ -9,7 +9,7 @@ import pytest
 import shapely
 from shapely.geometry import LineString, Polygon, box
 
-from overlay.outputs.labels import Item, _Fixed, _Layer, place_labels
+from overlay.outputs.labels import Item, _Fixed, _Layer, _pieces, place_labels
 
 
 def _obstacles(rng: np.random.Generator, n: int) -> list:
@@ -23,6 +23,9 @@ def _obstacles(rng: np.random.Generator, n: int) -> list:
             out.append(shapely.affinity.rotate(box(x, y, x + 2, y + 2), 30))  # not axis-aligned
         elif kind == 2:
             out.append(LineString([(x, y), (x + rng.uniform(-6, 6), y + rng.uniform(-6, 6))]))
+        elif kind == 3 and i % 8 == 3:  # a long leader on a slant, and one with a bend
+            out.append(LineString([(x, y), (x + rng.uniform(-40, 40), y + rng.uniform(-40, 40))]))
+            out.append(LineString([(x, y), (x + 5, y + 9), (x + 17, y - 3)]))
         else:
             out.append(Polygon([(x, y), (x + 4, y), (x + 4, y + 4), (x, y + 4)], [[(x + 1, y + 1), (x + 3, y + 1),
                                                                                   (x + 3, y + 3), (x + 1, y + 3)]]))
@@ -49,7 +52,8 @@ def test_fixed_obstacles_meet_a_box_exactly_when_shapely_says_so(seed: int) -> N
     obstacles, boxes = _obstacles(rng, 120), _boxes(rng, 400)
     want = _reference(boxes, obstacles)
     assert want[:3].all() and 0.1 < want.mean() < 0.9  # the touching cases, and both answers occur often
-    assert np.array_equal(_Fixed(obstacles).blocked(boxes), want)
+    for piece in (0.7, 3.0, 1e9):  # leaders cut into short pieces, or left whole
+        assert np.array_equal(_Fixed(obstacles, piece).blocked(boxes), want)
 
 
 @pytest.mark.parametrize("seed", [1, 2, 3])
@@ -65,7 +69,7 @@ def test_placed_layer_meets_a_box_exactly_when_shapely_says_so(seed: int) -> Non
 def test_a_line_crosses_fixed_obstacles_exactly_when_shapely_says_so() -> None:
     rng = np.random.default_rng(4)
     obstacles = _obstacles(rng, 60)
-    fixed, layer = _Fixed(obstacles), _Layer()
+    fixed, layer = _Fixed(obstacles, 0.7), _Layer()
     for o in obstacles:
         layer.add(o)
     for _ in range(200):
@@ -77,8 +81,21 @@ def test_a_line_crosses_fixed_obstacles_exactly_when_shapely_says_so() -> None:
 
 def test_no_obstacles_blocks_nothing() -> None:
     boxes = np.array([[0.0, 0.0, 1.0, 1.0]])
-    assert not _Fixed([]).blocked(boxes).any() and not _Fixed([Polygon()]).blocked(boxes).any()
-    assert not _Fixed([]).crossed(LineString([(0, 0), (1, 1)]))
+    assert not _Fixed([], 1.0).blocked(boxes).any() and not _Fixed([Polygon()], 1.0).blocked(boxes).any()
+    assert not _Fixed([], 1.0).crossed(LineString([(0, 0), (1, 1)]))
+
+
+def test_pieces_cover_the_same_line_end_to_end() -> None:
+    lines = [LineString([(0, 0), (10, 7)]), LineString([(3, 3), (3.2, 3.1)]), LineString([(0, 0), (4, 0), (4, 9)])]
+    pieces = _pieces(lines, 1.5)
+    assert shapely.length(pieces).max() <= 1.5 + 1e-12
+    # the same points to within rounding (the cut points are interpolated), by GEOS's Hausdorff distance
+    assert shapely.hausdorff_distance(shapely.union_all(pieces), shapely.union_all(lines)) < 1e-12
+    assert sum(shapely.length(pieces)) == pytest.approx(sum(line.length for line in lines), rel=1e-12)
+    ends = shapely.get_coordinates(pieces).reshape(-1, 2, 2)
+    joined = ends[1:, 0] == ends[:-1, 1]  # each piece starts exactly where one ends, bar the three starts
+    assert joined.all(axis=1).sum() == len(pieces) - 3
+    assert len(_pieces([], 1.0)) == 0
 
 
 def test_crowded_labels_keep_off_the_obstacles_each_other_and_other_zones() -> None:

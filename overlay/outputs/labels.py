@@ -107,10 +107,12 @@ class _Fixed:
     leaders), tested by outline against the boxes no rectangle blocks.  A campaign's drawing has
     thousands of obstacles: comparing each candidate with all their bounds was most of the time."""
 
-    def __init__(self, geoms: Sequence[BaseGeometry]) -> None:
+    def __init__(self, geoms: Sequence[BaseGeometry], piece: float) -> None:
         kept = [g for g in geoms if not g.is_empty]
         self.rects = shapely.STRtree([g for g in kept if _is_rect(g)])
-        self.shapes = np.array([g for g in kept if not _is_rect(g)], dtype=object)
+        lines = [g for g in kept if g.geom_type == "LineString"]
+        self.shapes = np.concatenate([np.array([g for g in kept if not _is_rect(g) and g.geom_type != "LineString"],
+                                               dtype=object), _pieces(lines, piece)])
         self.other = shapely.STRtree(self.shapes)
 
     def blocked(self, boxes: np.ndarray) -> np.ndarray:
@@ -128,6 +130,25 @@ class _Fixed:
         """Whether the line meets an obstacle."""
         return bool(self.rects.query(line, predicate="intersects").size
                     or self.other.query(line, predicate="intersects").size)
+
+
+def _pieces(lines: Sequence[LineString], piece: float) -> np.ndarray:
+    """The lines cut into straight pieces at most ``piece`` long (the cut points interpolated, so the
+    same points to within rounding; the ends exact).  A long
+    leader's bounds cover a wide area on a slant: whole, it was matched with every candidate box
+    around it (millions of outline tests on a campaign's drawing); its pieces meet only those near."""
+    if not lines:
+        return np.empty(0, dtype=object)
+    xy, which = shapely.get_coordinates(lines, return_index=True)
+    same = which[1:] == which[:-1]  # consecutive points of one line: a segment
+    a, b = xy[:-1][same], xy[1:][same]
+    n = np.maximum(np.ceil(np.hypot(*(b - a).T) / piece), 1).astype(int)
+    seg = np.repeat(np.arange(len(a)), n)
+    k = np.arange(len(seg)) - np.repeat(np.cumsum(n) - n, n)
+    t0, t1 = k / n[seg], (k + 1) / n[seg]
+    start = a[seg] + (b - a)[seg] * t0[:, None]
+    end = np.where((k + 1 == n[seg])[:, None], b[seg], a[seg] + (b - a)[seg] * t1[:, None])
+    return shapely.linestrings(np.stack([start, end], axis=1))
 
 
 def _is_rect(g: BaseGeometry) -> bool:
@@ -158,7 +179,7 @@ class _Board:
     def __init__(self, items: Sequence[Item], obstacles: Sequence[BaseGeometry], gap: float, within: Bounds | None):
         self.gap, self.within = gap, within
         self.placed = _Layer()
-        self.obstacles = _Fixed(obstacles)
+        self.obstacles = _Fixed(obstacles, piece=4 * gap)
         self.zones = shapely.STRtree([it.zone for it in items]) if items else None
 
     def clear(self, boxes: np.ndarray, own: int) -> np.ndarray:
