@@ -48,9 +48,40 @@ Bounds = tuple[float, float, float, float]
 
 
 class _Layer:
-    """Geometries already on the drawing, as numpy arrays of their bounds: a candidate box is tested
-    against all of them at once (the rectangles — labels, text boxes — by their bounds alone, the other
-    shapes by their bounds first and their outline only where those meet), sixteen candidates a ring."""
+    """Labels and leaders placed so far: all but the newest in a _Fixed, rebuilt every SETTLE additions,
+    the newest in a _Recent.  (A crowded drawing's candidates spread over rings as wide as the drawing:
+    compared with every placed box at once, the comparisons grew with the square of the labels.)"""
+
+    SETTLE = 64
+
+    def __init__(self) -> None:
+        self.geoms: list[BaseGeometry] = []
+        self.settled: _Fixed | None = None
+        self.recent = _Recent()
+
+    def add(self, g: BaseGeometry) -> None:
+        self.geoms.append(g)
+        self.recent.add(g)
+        if self.recent.n_rects + self.recent.n_other == self.SETTLE:
+            self.settled, self.recent = _Fixed(self.geoms, piece=math.inf), _Recent()
+
+    def blocked(self, boxes: np.ndarray) -> np.ndarray:
+        """For each box (k, 4) whether anything placed meets it."""
+        out = self.recent.blocked(boxes)
+        if self.settled is not None:
+            free = np.nonzero(~out)[0]
+            out[free] = self.settled.blocked(boxes[free])
+        return out
+
+    def crossed(self, line: LineString) -> bool:
+        """Whether the line meets anything placed."""
+        return self.recent.crossed(line) or (self.settled is not None and self.settled.crossed(line))
+
+
+class _Recent:
+    """Geometries as numpy arrays of their bounds: a candidate box is tested against all of them at once
+    (the rectangles — labels, text boxes — by their bounds alone, the other shapes by their bounds first
+    and their outline only where those meet), sixteen candidates a ring."""
 
     def __init__(self) -> None:
         self._rects, self._other = np.zeros((64, 4)), np.zeros((64, 4))  # room to grow, doubled when full
