@@ -73,9 +73,13 @@ class _Layer:
             out[free] = self.settled.blocked(boxes[free])
         return out
 
-    def crossed(self, line: LineString) -> bool:
-        """Whether the line meets anything placed."""
-        return self.recent.crossed(line) or (self.settled is not None and self.settled.crossed(line))
+    def crossing(self, lines: np.ndarray) -> np.ndarray:
+        """For each line whether it meets anything placed."""
+        out = self.recent.crossing(lines)
+        if self.settled is not None:
+            free = np.flatnonzero(~out)
+            out[free] = self.settled.crossing(lines[free])
+        return out
 
 
 class _Recent:
@@ -123,13 +127,15 @@ class _Recent:
             out[ii[shapely.intersects(shapely.box(*boxes.T)[ii], self._shapes[idx[jj]])]] = True
         return out
 
-    def crossed(self, line: LineString) -> bool:
-        """Whether the line meets anything here."""
-        b = np.asarray(line.bounds)[None, :]
-        near = self.rects[_overlaps(b, self.rects)[0]]
-        if shapely.intersects(line, shapely.box(*near.T)).any():
-            return True
-        return bool(shapely.intersects(line, self._shapes[: self.n_other][_overlaps(b, self.other)[0]]).any())
+    def crossing(self, lines: np.ndarray) -> np.ndarray:
+        """For each line whether it meets anything here (bounds first, then the outline)."""
+        out = np.zeros(len(lines), dtype=bool)
+        b = shapely.bounds(lines).reshape(-1, 4)
+        ii, jj = np.nonzero(_overlaps(b, self.rects))
+        out[ii[shapely.intersects(lines[ii], shapely.box(*self.rects[jj].T))]] = True
+        ii, jj = np.nonzero(_overlaps(b, self.other) & ~out[:, None])
+        out[ii[shapely.intersects(lines[ii], self._shapes[jj])]] = True
+        return out
 
 
 class _Fixed:
@@ -157,10 +163,13 @@ class _Fixed:
         out[free[ii[hit]]] = True
         return out
 
-    def crossed(self, line: LineString) -> bool:
-        """Whether the line meets an obstacle."""
-        return bool(self.rects.query(line, predicate="intersects").size
-                    or self.other.query(line, predicate="intersects").size)
+    def crossing(self, lines: np.ndarray) -> np.ndarray:
+        """For each line whether it meets an obstacle."""
+        out = np.zeros(len(lines), dtype=bool)
+        out[self.rects.query(lines, predicate="intersects")[0]] = True
+        free = np.flatnonzero(~out)
+        out[free[self.other.query(lines[free], predicate="intersects")[0]]] = True
+        return out
 
 
 def _pieces(lines: Sequence[LineString], piece: float) -> np.ndarray:
@@ -231,14 +240,17 @@ class _Board:
             ok[idx[cand[hit != own]]] = False
         return ok
 
-    def leader_clear(self, line: LineString, own: int) -> tuple[bool, bool]:
-        """(crosses no label or leader, crosses nothing else either)."""
-        if self.placed.crossed(line):
-            return False, False
-        return True, not self.obstacles.crossed(line) and self._zones_clear(line, own)
-
-    def _zones_clear(self, g: BaseGeometry, own: int) -> bool:
-        return self.zones is None or all(int(k) == own for k in self.zones.query(g, predicate="intersects"))
+    def leaders_clear(self, lines: np.ndarray, own: int) -> tuple[np.ndarray, np.ndarray]:
+        """For each leader: (crosses no label or leader, crosses nothing else either)."""
+        no_label = ~self.placed.crossing(lines)
+        nothing = no_label.copy()
+        idx = np.flatnonzero(nothing)
+        nothing[idx] = ~self.obstacles.crossing(lines[idx])
+        idx = np.flatnonzero(nothing)
+        if idx.size and self.zones is not None:
+            cand, hit = self.zones.query(lines[idx], predicate="intersects")
+            nothing[idx[cand[hit != own]]] = False
+        return no_label, nothing
 
     def add(self, b: Polygon, leader: LineString | None) -> None:
         self.placed.add(b)
@@ -270,7 +282,7 @@ def place_labels(items: Sequence[Item], gap: float, obstacles: Sequence[BaseGeom
             continue
         b, anchor = found
         placed.append(Placed(it.key, b, False, anchor))
-        board.add(b, _leader(b, anchor))
+        board.add(b, _leaders(np.array([b]), np.array([anchor]))[0])
     by_key = {p.key: p for p in placed}
     return [by_key[it.key] for it in items if it.key in by_key]
 
@@ -312,13 +324,16 @@ def _outside(it: Item, own: int, board: _Board, rings: int, optional: bool
         cands = _ring_boxes(np.arange(ring, last + 1), cx, cy, x1 - x0, y1 - y0, hw, hh, step)
         clear = board.clear(cands, own).reshape(-1, DIRECTIONS)
         for r in range(ring, last + 1):
-            for k in np.nonzero(clear[r - ring])[0]:
-                b = box(*cands[(r - ring) * DIRECTIONS + k])
-                anchor = _nearest(it.zone, b)
-                no_label, nothing = board.leader_clear(_leader(b, anchor), own)
-                if nothing:
+            at = np.flatnonzero(clear[r - ring])  # a ring's clear boxes, their leaders tested at once
+            if at.size:
+                boxes = shapely.box(*cands[(r - ring) * DIRECTIONS + at].T)
+                anchors = _nearest(it.zone, boxes)
+                no_label, nothing = board.leaders_clear(_leaders(boxes, anchors), own)
+            for j in range(len(at)):
+                b, anchor = boxes[j], (float(anchors[j, 0]), float(anchors[j, 1]))
+                if nothing[j]:
                     return b, anchor
-                if no_label and nearest is None:
+                if no_label[j] and nearest is None:
                     nearest = (b, anchor, r)
                 boxed = boxed or (b, anchor, r)
             found = nearest or boxed
@@ -333,7 +348,8 @@ def _outside(it: Item, own: int, board: _Board, rings: int, optional: bool
         return boxed[0], boxed[1]
     if optional:
         return None
-    return first, _nearest(it.zone, first)
+    a = _nearest(it.zone, np.array([first]))[0]
+    return first, (float(a[0]), float(a[1]))
 
 
 def _ring_boxes(rings: np.ndarray, cx: float, cy: float, zw: float, zh: float, hw: float, hh: float,
@@ -348,13 +364,18 @@ def _ring_boxes(rings: np.ndarray, cx: float, cy: float, zw: float, zh: float, h
     return np.column_stack([bx - hw, by - hh, bx + hw, by + hh])
 
 
-def _leader(b: Polygon, anchor: tuple[float, float]) -> LineString:
-    return LineString([anchor, leader_end(b, anchor)])
+def _leaders(boxes: np.ndarray, anchors: np.ndarray) -> np.ndarray:
+    """The leaders from each anchor (m, 2) to the nearest point of its box (leader_end, for many at once)."""
+    if not len(boxes):
+        return np.empty(0, dtype=object)
+    ends = shapely.get_coordinates(shapely.shortest_line(shapely.points(anchors), shapely.boundary(boxes)))
+    return shapely.linestrings(np.stack([anchors, ends.reshape(-1, 2, 2)[:, 1]], axis=1))
 
 
-def _nearest(zone: Polygon, b: Polygon) -> tuple[float, float]:
-    p, _ = shapely.ops.nearest_points(zone.boundary, b)
-    return p.x, p.y
+def _nearest(zone: Polygon, boxes: np.ndarray) -> np.ndarray:
+    """(m, 2): for each box the point of the zone's outline nearest to it, where its leader starts."""
+    line = shapely.shortest_line(zone.boundary, boxes)
+    return shapely.get_coordinates(line).reshape(-1, 2, 2)[:, 0]
 
 
 def leader_end(b: Polygon, anchor: tuple[float, float]) -> tuple[float, float]:
