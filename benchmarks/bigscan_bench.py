@@ -13,6 +13,7 @@ One scan on a 250 × 200 grid at 2 cm with ten resonant hollows, records 4,096 s
              included, no cache): DXF, GeoPackage, CSV, text report           target ≤ 5 × floor
   run+pics   the same with the pictures and the HTML report                     target ≤ 12 × floor
   start-up   `overlay --version` and `overlay --help`                           target ≤ 0.3 s
+  imports    a new process importing only the libraries a run needs (for comparison)
 
 ``--memory``: the same scan at 125,000 points × 8,192 samples (4.1 GB), ten hollows, a whole run
 with pictures: peak resident memory of the process (target ≤ 512 MB).
@@ -106,6 +107,14 @@ def run(site: Path, out: Path, *extra: str) -> tuple[float, float]:
     return wall, int(done.stderr.strip().splitlines()[-1]) / 1024
 
 
+def imports() -> float:
+    """A new process that only imports the libraries a run needs: a floor under every run's start."""
+    t0 = time.perf_counter()
+    subprocess.run([sys.executable, "-c", "import numpy, scipy.fft, scipy.optimize, scipy.special, shapely, pyproj, "
+                    "ezdxf"], check=True)
+    return time.perf_counter() - t0
+
+
 def startup(*args: str) -> float:
     t0 = time.perf_counter()
     subprocess.run([OVERLAY, *args], capture_output=True, check=True)
@@ -136,7 +145,8 @@ def main() -> None:
                             globals(), {"overlay": overlay, "site": site, "root": root}, str(root / "prof"))
             pstats.Stats(str(root / "prof")).sort_stats("cumulative").print_stats(25)
             return
-        rows: dict[str, list[float]] = {"floor": [], "run": [], "pics": [], "rss": [], "version": [], "help": []}
+        rows: dict[str, list[float]] = {"floor": [], "run": [], "pics": [], "rss": [], "version": [], "help": [],
+                                        "imports": []}
         for k in range(args.runs):
             rows["floor"].append(floor(root / "site" / "scans" / "BIG" / "records.npy"))
             rows["run"].append(run(site, root / "out", "--no-pictures")[0])
@@ -145,12 +155,16 @@ def main() -> None:
             rows["rss"].append(rss)
             rows["version"].append(startup("--version"))
             rows["help"].append(startup("--help"))
+            rows["imports"].append(imports())
         ratio = [r / f for r, f in zip(rows["run"], rows["floor"])]
         ratio_p = [r / f for r, f in zip(rows["pics"], rows["floor"])]
         print(f"50,000 × 4,096 float32 scan, {args.runs} runs, min / median / max:")
         print(f"  floor (chunked rfft)           {spread(rows['floor'], '.3f')} s")
         print(f"  run, no pictures               {spread(rows['run'])} s   ratio {spread(ratio, '.1f')}   (target <= 5)")
         print(f"  run with pictures              {spread(rows['pics'])} s   ratio {spread(ratio_p, '.1f')}   (target <= 12)")
+        ratio_i = [r / f for r, f in zip(rows["imports"], rows["floor"])]
+        print(f"  imports alone (numpy, scipy, shapely, pyproj, ezdxf) {spread(rows['imports'])} s   "
+              f"ratio {spread(ratio_i, '.1f')}   (for comparison: a floor under the run's start)")
         print(f"  peak memory, with pictures     {spread(rows['rss'], '.0f')} MB")
         print(f"  overlay --version              {spread(rows['version'])} s   (target <= 0.3)")
         print(f"  overlay --help                 {spread(rows['help'])} s   (target <= 0.3)")
