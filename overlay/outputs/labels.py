@@ -293,6 +293,9 @@ def _box(cx: float, cy: float, w: float, h: float) -> Polygon:
 
 def _inside(it: Item, gap: float) -> Polygon | None:
     """The box centred on the zone's pole of inaccessibility, if it fits within the zone."""
+    x0, y0, x1, y1 = it.zone.bounds
+    if it.width > x1 - x0 or it.height > y1 - y0:  # it cannot fit (a name beside its symbol, mostly)
+        return None
     core = it.zone.buffer(-gap)
     if core.is_empty:
         return None
