@@ -9,7 +9,7 @@ import pytest
 import shapely
 from shapely.geometry import LineString, Polygon, box
 
-from overlay.outputs.labels import Item, _Fixed, _Layer, _pieces, place_labels
+from overlay.outputs.labels import MAX_PIECES, Item, _Fixed, _Layer, _pieces, place_labels
 
 
 def _obstacles(rng: np.random.Generator, n: int) -> list:
@@ -66,6 +66,19 @@ def test_placed_layer_meets_a_box_exactly_when_shapely_says_so(seed: int) -> Non
     assert np.array_equal(layer.blocked(boxes), _reference(boxes, obstacles))
 
 
+def test_placed_layer_settles_in_trees_of_doubling_size_and_still_answers_exactly() -> None:
+    rng = np.random.default_rng(6)
+    obstacles, boxes = _obstacles(rng, 7 * _Layer.SETTLE + 5), _boxes(rng, 300)
+    layer = _Layer()
+    for o in obstacles:
+        layer.add(o)
+    sizes = [len(g) for g, _ in layer.settled]
+    full = len(obstacles) // _Layer.SETTLE  # trees as the binary digits of the settled batches, largest first
+    assert full >= 7 and sizes == [_Layer.SETTLE << b for b in reversed(range(full.bit_length())) if full >> b & 1]
+    assert sum(sizes) + len(layer.newest) == len(obstacles)
+    assert np.array_equal(layer.blocked(boxes), _reference(boxes, obstacles))
+
+
 def test_a_line_crosses_fixed_obstacles_exactly_when_shapely_says_so() -> None:
     rng = np.random.default_rng(4)
     obstacles = _obstacles(rng, 60)
@@ -96,6 +109,17 @@ def test_pieces_cover_the_same_line_end_to_end() -> None:
     joined = ends[1:, 0] == ends[:-1, 1]  # each piece starts exactly where one ends, bar the three starts
     assert joined.all(axis=1).sum() == len(pieces) - 3
     assert len(_pieces([], 1.0)) == 0
+
+
+def test_a_leaders_band_kept_by_pieces_is_the_band_of_the_whole_leader() -> None:
+    """The placed layer keeps a leader's band as the buffers of its pieces: the same area as GEOS's
+    buffer of the whole line (their symmetric difference is rounding)."""
+    leader = LineString([(2.0, 1.0), (-37.0, 55.0)])
+    whole = leader.buffer(0.25)
+    parts = shapely.union_all([p.buffer(0.25) for p in _pieces([leader], 4.0)])
+    assert len(_pieces([leader], 4.0)) == 17
+    assert whole.symmetric_difference(parts).area < 1e-9 * whole.area
+    assert len(_pieces([LineString([(0, 0), (1e4, 0)])], 1e-6)) == MAX_PIECES  # bounded, however long
 
 
 def test_crowded_labels_keep_off_the_obstacles_each_other_and_other_zones() -> None:

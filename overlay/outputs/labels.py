@@ -42,43 +42,51 @@ class Placed:
 DIRECTIONS = 16
 MAX_RINGS = 400
 LEADER_DETOUR = 4  # rings searched beyond the nearest clear box for one whose leader crosses nothing at all
+MAX_PIECES = 1024  # per straight segment of an obstacle line: a long line and a tiny gap cost no more
+LINE_PIECE = 4  # gaps: the caller's lines are cut into pieces this long for the STR-trees (_pieces)
+LEADER_PIECE = 16  # gaps: a placed leader's keep-off band, in pieces this long (each one buffered)
 
 
 Bounds = tuple[float, float, float, float]
 
 
 class _Layer:
-    """Labels and leaders placed so far: all but the newest in a _Fixed, rebuilt every SETTLE additions,
-    the newest in a _Recent.  (A crowded drawing's candidates spread over rings as wide as the drawing:
-    compared with every placed box at once, the comparisons grew with the square of the labels.)"""
+    """Labels and leaders placed so far: the newest in a _Recent, the others settled in _Fixed trees of
+    SETTLE, 2·SETTLE, 4·SETTLE … geometries (two of a size are merged into one of twice the size, so
+    each geometry is settled again only log₂ times: a campaign's thousands of labels stay linear).  A
+    crowded drawing's candidates spread over rings as wide as the drawing: compared with every placed
+    box at once, the comparisons grew with the square of the labels."""
 
     SETTLE = 64
 
     def __init__(self) -> None:
-        self.geoms: list[BaseGeometry] = []
-        self.settled: _Fixed | None = None
+        self.newest: list[BaseGeometry] = []
         self.recent = _Recent()
+        self.settled: list[tuple[list[BaseGeometry], _Fixed]] = []  # largest first
 
     def add(self, g: BaseGeometry) -> None:
-        self.geoms.append(g)
+        self.newest.append(g)
         self.recent.add(g)
-        if self.recent.n_rects + self.recent.n_other == self.SETTLE:
-            self.settled, self.recent = _Fixed(self.geoms, piece=math.inf), _Recent()
+        if len(self.newest) == self.SETTLE:
+            geoms, self.newest, self.recent = self.newest, [], _Recent()
+            while self.settled and len(self.settled[-1][0]) == len(geoms):
+                geoms = self.settled.pop()[0] + geoms
+            self.settled.append((geoms, _Fixed(geoms, piece=math.inf)))
 
     def blocked(self, boxes: np.ndarray) -> np.ndarray:
         """For each box (k, 4) whether anything placed meets it."""
         out = self.recent.blocked(boxes)
-        if self.settled is not None:
-            free = np.nonzero(~out)[0]
-            out[free] = self.settled.blocked(boxes[free])
+        for _, tree in self.settled:
+            free = np.flatnonzero(~out)
+            out[free] = tree.blocked(boxes[free])
         return out
 
     def crossing(self, lines: np.ndarray) -> np.ndarray:
         """For each line whether it meets anything placed."""
         out = self.recent.crossing(lines)
-        if self.settled is not None:
+        for _, tree in self.settled:
             free = np.flatnonzero(~out)
-            out[free] = self.settled.crossing(lines[free])
+            out[free] = tree.crossing(lines[free])
         return out
 
 
@@ -182,7 +190,7 @@ def _pieces(lines: Sequence[LineString], piece: float) -> np.ndarray:
     xy, which = shapely.get_coordinates(lines, return_index=True)
     same = which[1:] == which[:-1]  # consecutive points of one line: a segment
     a, b = xy[:-1][same], xy[1:][same]
-    n = np.maximum(np.ceil(np.hypot(*(b - a).T) / piece), 1).astype(int)
+    n = np.clip(np.ceil(np.hypot(*(b - a).T) / piece), 1, MAX_PIECES).astype(int)
     seg = np.repeat(np.arange(len(a)), n)
     k = np.arange(len(seg)) - np.repeat(np.cumsum(n) - n, n)
     t0, t1 = k / n[seg], (k + 1) / n[seg]
@@ -219,7 +227,7 @@ class _Board:
     def __init__(self, items: Sequence[Item], obstacles: Sequence[BaseGeometry], gap: float, within: Bounds | None):
         self.gap, self.within = gap, within
         self.placed = _Layer()
-        self.obstacles = _Fixed(obstacles, piece=4 * gap)
+        self.obstacles = _Fixed(obstacles, piece=LINE_PIECE * gap)
         self.zones = shapely.STRtree([it.zone for it in items]) if items else None
 
     def clear(self, boxes: np.ndarray, own: int) -> np.ndarray:
@@ -254,8 +262,9 @@ class _Board:
 
     def add(self, b: Polygon, leader: LineString | None) -> None:
         self.placed.add(b)
-        if leader is not None:
-            self.placed.add(leader.buffer(self.gap / 4))  # later labels and leaders keep off it
+        if leader is not None:  # later labels and leaders keep off it; by pieces, as _Fixed keeps lines
+            for piece in _pieces([leader], LEADER_PIECE * self.gap):
+                self.placed.add(piece.buffer(self.gap / 4))
 
 
 def place_labels(items: Sequence[Item], gap: float, obstacles: Sequence[BaseGeometry] = (), *,
