@@ -121,9 +121,8 @@ class _Recent:
             self.n_other += 1
 
     def blocked(self, boxes: np.ndarray) -> np.ndarray:
-        """For each box (k, 4) whether anything here meets it.  Only what lies within the boxes' joint
-        bounds is compared box by box: the candidates of one call are near one zone, and a campaign's
-        drawing holds thousands of labels (comparing every box with all of them made placement quadratic)."""
+        """For each box (k, 4) whether anything here meets it; only what lies within the boxes' joint
+        bounds is compared box by box."""
         if not (self.n_rects or self.n_other):
             return np.zeros(len(boxes), dtype=bool)
         region = np.array([[boxes[:, 0].min(), boxes[:, 1].min(), boxes[:, 2].max(), boxes[:, 3].max()]])
@@ -154,10 +153,11 @@ class _Fixed:
 
     def __init__(self, geoms: Sequence[BaseGeometry], piece: float) -> None:
         kept = [g for g in geoms if not g.is_empty]
-        self.rects = shapely.STRtree([g for g in kept if _is_rect(g)])
-        lines = [g for g in kept if g.geom_type == "LineString"]
-        self.shapes = np.concatenate([np.array([g for g in kept if not _is_rect(g) and g.geom_type != "LineString"],
-                                               dtype=object), _pieces(lines, piece)])
+        rect = [_is_rect(g) for g in kept]
+        line = [g.geom_type == "LineString" for g in kept]
+        self.rects = shapely.STRtree([g for g, r in zip(kept, rect) if r])
+        shapes = np.array([g for g, r, ln in zip(kept, rect, line) if not (r or ln)], dtype=object)
+        self.shapes = np.concatenate([shapes, _pieces([g for g, ln in zip(kept, line) if ln], piece)])
         self.other = shapely.STRtree(self.shapes)
 
     def blocked(self, boxes: np.ndarray) -> np.ndarray:
@@ -182,9 +182,9 @@ class _Fixed:
 
 def _pieces(lines: Sequence[LineString], piece: float) -> np.ndarray:
     """The lines cut into straight pieces at most ``piece`` long (the cut points interpolated, so the
-    same points to within rounding; the ends exact).  A long
-    leader's bounds cover a wide area on a slant: whole, it was matched with every candidate box
-    around it (millions of outline tests on a campaign's drawing); its pieces meet only those near."""
+    same points to within rounding; the ends exact; at most MAX_PIECES a segment).  A long leader's
+    bounds cover a wide area on a slant: whole, it was matched with every candidate box around it
+    (millions of outline tests on a campaign's drawing); its pieces meet only those near them."""
     if not lines:
         return np.empty(0, dtype=object)
     xy, which = shapely.get_coordinates(lines, return_index=True)
