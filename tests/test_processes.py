@@ -26,12 +26,13 @@ from pathlib import Path
 from overlay.errors import OverlayError
 from overlay.exporters.dxf import DxfExporter
 from overlay.exporters.gpkg import GeoPackageExporter
+import overlay.outputs.write as write
 from overlay.outputs.write import write_outputs
 
 case, out = sys.argv[1], Path(sys.argv[3])
 result = pickle.loads(Path(sys.argv[2]).read_bytes())
 pids = out.parent / "pids"
-real_gpkg, real_dxf = GeoPackageExporter.write, DxfExporter.write
+real_gpkg, real_dxf, real_draw = GeoPackageExporter.write, DxfExporter.write, write.draw_pictures
 
 
 def note(kind):
@@ -47,11 +48,14 @@ def gpkg(self, r, path):
         raise RuntimeError("boom")
     if case == "dies":
         os._exit(3)
-    if case == "drawing fails":  # half a file and SQLite's journal beside it, then a long write
+    if case == "pictures meanwhile":
+        time.sleep(3.0)
+    if case in ("drawing fails", "pictures fail"):  # half a file and SQLite's journal beside it, a long write
         path.write_bytes(b"half")
         Path(f"{path}-journal").write_bytes(b"journal")
         time.sleep(60)
     real_gpkg(self, r, path)
+    note("gpkg-done")
 
 
 def dxf(self, r, path):
@@ -62,17 +66,27 @@ def dxf(self, r, path):
     real_dxf(self, r, path)
 
 
-GeoPackageExporter.write, DxfExporter.write = gpkg, dxf
+def draw(*args, **kwargs):
+    note("pictures")
+    if case == "pictures fail":
+        time.sleep(1.0)
+        raise OSError(28, "No space left on device")  # as a full disk would stop the pictures
+    return real_draw(*args, **kwargs)
+
+
+GeoPackageExporter.write, DxfExporter.write, write.draw_pictures = gpkg, dxf, draw
 if case == "thread":
     threading.Thread(target=time.sleep, args=(30,), daemon=True).start()
 t0 = time.perf_counter()
 with warnings.catch_warnings(record=True) as seen:
     warnings.simplefilter("always")
     try:
-        write_outputs(result, out, pictures=False, pdf=False)
+        write_outputs(result, out, pictures=case.startswith("pictures"), pdf=False)
         error = None
     except OverlayError as exc:
         error = {"line": exc.line(), "type": type(exc).__name__, "source": exc.source, "code": exc.exit_code}
+    except OSError as exc:
+        error = {"line": str(exc), "type": type(exc).__name__}
 print(json.dumps({"error": error, "pid": os.getpid(), "seconds": time.perf_counter() - t0,
                   "warnings": [str(w.message) for w in seen]}))
 '''
@@ -92,6 +106,7 @@ def run_case(case: str, pickled: Path, tmp: Path) -> tuple[dict, dict[str, int],
     assert done.returncode == 0, done.stderr[-2000:]
     said = json.loads(done.stdout.strip().splitlines()[-1])
     pids = dict(line.split() for line in (tmp / "pids").read_text().splitlines())
+    said["order"] = [line.split()[0] for line in (tmp / "pids").read_text().splitlines()]
     return said, {k: int(v) for k, v in pids.items()}, out
 
 
@@ -140,3 +155,18 @@ def test_a_failed_drawing_stops_the_writer_beside_and_removes_its_files(pickled:
     assert said["error"]["line"].endswith("exporter 'dxf' failed: RuntimeError: drawing failed")
     assert said["seconds"] < 30  # the writer beside was stopped, not waited for (it sleeps 60 s)
     assert files(out) == []  # its half-written file and the journal beside it are gone too
+
+
+def test_the_pictures_are_drawn_while_the_writer_beside_still_works(pickled: Path, tmp_path: Path) -> None:
+    said, pids, out = run_case("pictures meanwhile", pickled, tmp_path)
+    assert said["error"] is None
+    assert said["order"].index("pictures") < said["order"].index("gpkg-done")  # not waited for first
+    assert pids["pictures"] == said["pid"] != pids["gpkg"]
+    assert ".gpkg" in {Path(n).suffix for n in files(out)} and any(n.endswith(".png") for n in files(out))
+
+
+def test_failed_pictures_stop_the_writer_beside_and_remove_its_files(pickled: Path, tmp_path: Path) -> None:
+    said, _, out = run_case("pictures fail", pickled, tmp_path)
+    assert said["error"] is not None and "No space left on device" in said["error"]["line"]
+    assert said["seconds"] < 30  # the writer beside was stopped, not waited for (it sleeps 60 s)
+    assert files(out) == []

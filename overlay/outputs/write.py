@@ -6,6 +6,7 @@ unless the user asked for it to be replaced.
 
 from __future__ import annotations
 
+import contextlib
 import errno
 import os
 import re
@@ -14,7 +15,7 @@ import warnings
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
-from typing import TYPE_CHECKING, Any, Callable, Sequence
+from typing import TYPE_CHECKING, Any, Callable, Iterator, Sequence
 
 from overlay.errors import (
     ExporterError,
@@ -311,13 +312,19 @@ def _write_staged(result: "RunResult", exporters: dict[str, "Exporter"], paths: 
                   pics: dict[str, Path], pages: dict[str, Path], staged: Staged, jobs: int,
                   progress: Callable[[int], None] | None, pdf: bool | None, browser: str | None) -> None:
     """Every output into its temporary file."""
-    from overlay.outputs.report_html import report_pages, site_report
     from overlay.outputs.report_text import run_report
 
-    _write_formats(result, exporters, paths, staged)
-    _write_text(staged[paths["report"]], run_report(result))
-    if not pics:
-        return
+    with _formats_written(result, exporters, paths, staged):  # the second process, if any, works on meanwhile
+        _write_text(staged[paths["report"]], run_report(result))
+        if pics:
+            _write_pictures_and_pages(result, exporters, paths, pics, pages, staged, jobs, progress, pdf, browser)
+
+
+def _write_pictures_and_pages(result: "RunResult", exporters: dict[str, "Exporter"], paths: dict[str, Path],
+                              pics: dict[str, Path], pages: dict[str, Path], staged: Staged, jobs: int,
+                              progress: Callable[[int], None] | None, pdf: bool | None, browser: str | None) -> None:
+    from overlay.outputs.report_html import report_pages, site_report
+
     images = draw_pictures(result, staged[paths["dxf"]] if "dxf" in exporters else None, jobs=jobs, progress=progress)
     for name, png in images.items():
         _write_bytes(staged[pics[name]], png)
@@ -339,10 +346,12 @@ def _write_staged(result: "RunResult", exporters: dict[str, "Exporter"], paths: 
                 _print(staged, page, pages[name[:-5] + ".pdf"], browser, pdf)
 
 
-def _write_formats(result: "RunResult", exporters: dict[str, "Exporter"], paths: dict[str, Path],
-                   staged: Staged) -> None:
+@contextlib.contextmanager
+def _formats_written(result: "RunResult", exporters: dict[str, "Exporter"], paths: dict[str, Path],
+                     staged: Staged) -> Iterator[None]:
     """Every format into its temporary file: the DXF here and, meanwhile, the others in a second process
-    (overlay.processes), where one can be forked; else all here, one after the other."""
+    (overlay.processes), where one can be forked — waited for when the caller's block is done, so the
+    reports and pictures are made meanwhile too; else all here, one after the other, first."""
     from overlay.processes import Beside, can_fork
 
     def write(formats: list[str]) -> None:
@@ -353,10 +362,12 @@ def _write_formats(result: "RunResult", exporters: dict[str, "Exporter"], paths:
     there = [f for f in exporters if f != "dxf"]
     if not (here and there and can_fork()):
         write(list(exporters))
+        yield
         return
     beside = Beside(lambda: write(there))
     try:
         write(here)
+        yield
     except BaseException:
         beside.stop()
         raise
