@@ -14,7 +14,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Sequence
+from typing import Callable, Sequence
 
 import numpy as np
 import shapely
@@ -75,19 +75,21 @@ class _Layer:
 
     def blocked(self, boxes: np.ndarray) -> np.ndarray:
         """For each box (k, 4) whether anything placed meets it."""
-        out = self.recent.blocked(boxes)
-        for _, tree in self.settled:
-            free = np.flatnonzero(~out)
-            out[free] = tree.blocked(boxes[free])
-        return out
+        return _any_of([self.recent.blocked] + [tree.blocked for _, tree in self.settled], boxes)
 
     def crossing(self, lines: np.ndarray) -> np.ndarray:
         """For each line whether it meets anything placed."""
-        out = self.recent.crossing(lines)
-        for _, tree in self.settled:
-            free = np.flatnonzero(~out)
-            out[free] = tree.crossing(lines[free])
-        return out
+        return _any_of([self.recent.crossing] + [tree.crossing for _, tree in self.settled], lines)
+
+
+def _any_of(tests: list[Callable[[np.ndarray], np.ndarray]], items: np.ndarray) -> np.ndarray:
+    """For each item whether any test holds for it; a test is asked only about the items no earlier one held for."""
+    out = np.zeros(len(items), dtype=bool)
+    for test in tests:
+        free = np.flatnonzero(~out)
+        if free.size:
+            out[free] = test(items[free])
+    return out
 
 
 class _Recent:
@@ -165,7 +167,7 @@ class _Fixed:
         out = np.zeros(len(boxes), dtype=bool)
         geoms = shapely.box(*boxes.T)
         out[self.rects.query(geoms)[0]] = True
-        free = np.nonzero(~out)[0]
+        free = np.flatnonzero(~out)
         ii, jj = self.other.query(geoms[free])  # bounds first, then the outline where they meet
         hit = shapely.intersects(geoms[free[ii]], self.shapes[jj])
         out[free[ii[hit]]] = True
@@ -238,14 +240,9 @@ class _Board:
         w = self.within
         if w is not None:
             ok &= (w[0] <= grown[:, 0]) & (grown[:, 2] <= w[2]) & (w[1] <= grown[:, 1]) & (grown[:, 3] <= w[3])
-        for layer in (self.placed, self.obstacles):
-            idx = np.nonzero(ok)[0]
-            if idx.size:
-                ok[idx] &= ~layer.blocked(grown[idx])
-        idx = np.nonzero(ok)[0]
-        if idx.size and self.zones is not None:
-            cand, hit = self.zones.query(shapely.box(*grown[idx].T), predicate="intersects")
-            ok[idx[cand[hit != own]]] = False
+        idx = np.flatnonzero(ok)
+        ok[idx] = ~_any_of([self.placed.blocked, self.obstacles.blocked,
+                            lambda b: self._others_zones(shapely.box(*b.T), own)], grown[idx])
         return ok
 
     def leaders_clear(self, lines: np.ndarray, own: int) -> tuple[np.ndarray, np.ndarray]:
@@ -253,12 +250,16 @@ class _Board:
         no_label = ~self.placed.crossing(lines)
         nothing = no_label.copy()
         idx = np.flatnonzero(nothing)
-        nothing[idx] = ~self.obstacles.crossing(lines[idx])
-        idx = np.flatnonzero(nothing)
-        if idx.size and self.zones is not None:
-            cand, hit = self.zones.query(lines[idx], predicate="intersects")
-            nothing[idx[cand[hit != own]]] = False
+        nothing[idx] = ~_any_of([self.obstacles.crossing, lambda g: self._others_zones(g, own)], lines[idx])
         return no_label, nothing
+
+    def _others_zones(self, geoms: np.ndarray, own: int) -> np.ndarray:
+        """For each geometry whether it meets the zone of an item other than ``own``."""
+        out = np.zeros(len(geoms), dtype=bool)
+        if self.zones is not None:
+            cand, hit = self.zones.query(geoms, predicate="intersects")
+            out[cand[hit != own]] = True
+        return out
 
     def add(self, b: Polygon, leader: LineString | None) -> None:
         self.placed.add(b)
@@ -392,5 +393,5 @@ def _nearest(zone: Polygon, boxes: np.ndarray) -> np.ndarray:
 
 def leader_end(b: Polygon, anchor: tuple[float, float]) -> tuple[float, float]:
     """Where a leader from ``anchor`` meets the label box (the box point nearest to it)."""
-    _, q = shapely.ops.nearest_points(shapely.Point(anchor), b.boundary)
-    return q.x, q.y
+    x, y = _leaders(np.array([b]), np.array([anchor]))[0].coords[1]
+    return x, y
