@@ -4,8 +4,9 @@ Both are forked or spawned from a process that may be killed; both must then end
 may run the parent's SIGTERM clean-up (that belongs to the parent's temporary files).  The second
 writing process exists because a campaign's formats are independent: while this process draws
 the DXF (the slowest, ~11 s at 800 scans) and makes the reports and pictures, the GeoPackage and
-the tables are written beside it (3-5 s more, no longer waited for).  It is forked, so it starts with the run's result in memory —
-nothing is pickled — and sends back only what went wrong and what it warned.
+the tables are written beside it (3-5 s more, no longer waited for).  It is forked, so it starts
+with the run's result in memory — nothing is pickled — and sends back only what went wrong and
+what it warned.
 """
 
 from __future__ import annotations
